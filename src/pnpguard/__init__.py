@@ -1,0 +1,13 @@
+"""pnpguard: convergent plug-and-play image reconstruction.
+
+Measure a denoiser (averagedness, Lipschitz constants), turn the measurements
+into admissible step sizes through published theorems or refuse with a reason,
+and monitor every run's fixed-point residual.
+"""
+
+from .operators import *  # noqa: F403
+from .operators import __all__ as _operators_all
+
+__version__ = "0.1.0"
+
+__all__ = [*_operators_all]

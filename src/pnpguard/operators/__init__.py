@@ -1,0 +1,22 @@
+"""Forward models: linear operators with exact adjoints and norm information."""
+
+from ._base import LinearOperator, NormBound, power_iteration
+from ._convolution import Convolution
+from ._decimation import Decimation
+from ._mask import PixelMask, dead_lines_mask, random_pixel_mask, scratch_mask
+from ._psf import disk_psf, gaussian_psf, motion_psf
+
+__all__ = [
+    "Convolution",
+    "Decimation",
+    "LinearOperator",
+    "NormBound",
+    "PixelMask",
+    "dead_lines_mask",
+    "disk_psf",
+    "gaussian_psf",
+    "motion_psf",
+    "power_iteration",
+    "random_pixel_mask",
+    "scratch_mask",
+]
