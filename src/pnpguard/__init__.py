@@ -5,9 +5,10 @@ into admissible step sizes through published theorems or refuse with a reason,
 and monitor every run's fixed-point residual.
 """
 
+from .fidelity import LeastSquares
 from .operators import *  # noqa: F403
 from .operators import __all__ as _operators_all
 
 __version__ = "0.1.0"
 
-__all__ = [*_operators_all]
+__all__ = ["LeastSquares", *_operators_all]

@@ -1,0 +1,349 @@
+"""Parallel-beam projection (discrete Radon transform) and filtered backprojection."""
+
+from __future__ import annotations
+
+import math
+import warnings
+from typing import Any
+
+import numpy as np
+import scipy.sparse
+import torch
+
+from .._arrays import ArrayLike, as_float_tensor, check_image_shape, from_tensor, to_tensor
+from ._base import LinearOperator, Shape, _as_shape
+
+#: Pixel rows processed together while the system matrix is assembled.
+_ROWS_PER_BLOCK = 16
+
+
+def _validate_angles(angles: Any) -> np.ndarray:
+    values = as_float_tensor(angles, "angles")
+    if values.ndim != 1 or values.numel() == 0:
+        raise ValueError(
+            f"`angles` must be a non-empty 1-D array of angles in degrees, got shape "
+            f"{tuple(values.shape)}"
+        )
+    return values.numpy().copy()
+
+
+def _validate_detectors(n_detectors: Any, shape: Shape) -> int:
+    if n_detectors is None:
+        return math.ceil(math.hypot(*shape))
+    if isinstance(n_detectors, bool) or not isinstance(n_detectors, (int, np.integer)):
+        raise TypeError(f"`n_detectors` must be a positive integer or None, got {n_detectors!r}")
+    if n_detectors < 1:
+        raise ValueError(f"`n_detectors` must be a positive integer, got {n_detectors}")
+    return int(n_detectors)
+
+
+def _lower_footprint_cdf(t: np.ndarray, wide: np.ndarray, narrow: np.ndarray) -> np.ndarray:
+    """Distribution function, at ``t <= 0``, of a unit pixel's projection profile.
+
+    The profile is the density of the sum of two centred uniform variables of
+    widths ``wide >= narrow >= 0`` (a trapezoid of unit area).
+    """
+    outer = 0.5 * (wide + narrow)
+    inner = 0.5 * (wide - narrow)
+    ramp = np.maximum(t + outer, 0.0)
+    denominator = np.where(narrow > 0, 2.0 * wide * narrow, 1.0)
+    return np.where(t < -inner, ramp * ramp / denominator, 0.5 + t / wide)
+
+
+def _transposed_system_matrix(shape: Shape, angles: np.ndarray, n_detectors: int) -> scipy.sparse.csr_matrix:
+    """``A^T`` as a float64 CSR matrix (rows: pixels, columns: (angle, bin))."""
+    height, width = shape
+    theta = np.deg2rad(angles)
+    cos, sin = np.cos(theta), np.sin(theta)
+    wide = np.maximum(np.abs(cos), np.abs(sin))[None, :]
+    narrow = np.minimum(np.abs(cos), np.abs(sin))[None, :]
+    x = np.arange(width) - 0.5 * (width - 1)
+    y = 0.5 * (height - 1) - np.arange(height)
+    base = (np.arange(angles.size) * n_detectors)[None, :, None]
+    offsets = np.array([-1, 0, 1])
+    indptr = [np.zeros(1, dtype=np.int64)]
+    indices, data = [], []
+    count = 0
+    for start in range(0, height, _ROWS_PER_BLOCK):
+        rows = y[start : start + _ROWS_PER_BLOCK]
+        # Pixel centres in detector-bin units (bin k is centred at k).
+        position = (
+            (rows[:, None, None] * sin[None, None, :] + x[None, :, None] * cos[None, None, :])
+            .reshape(-1, angles.size)
+            + 0.5 * (n_detectors - 1)
+        )
+        nearest = np.rint(position)
+        frac = position - nearest
+        below = _lower_footprint_cdf(-0.5 - frac, wide, narrow)
+        above = _lower_footprint_cdf(-0.5 + frac, wide, narrow)
+        weights = np.stack([below, 1.0 - below - above, above], axis=-1)
+        bins = nearest[..., None].astype(np.int64) + offsets
+        keep = (weights > 0) & (bins >= 0) & (bins < n_detectors)
+        indices.append((bins + base)[keep])
+        data.append(weights[keep])
+        per_pixel = keep.reshape(keep.shape[0], -1).sum(axis=1)
+        indptr.append(count + np.cumsum(per_pixel))
+        count += int(per_pixel.sum())
+    return scipy.sparse.csr_matrix(
+        (np.concatenate(data), np.concatenate(indices), np.concatenate(indptr)),
+        shape=(height * width, angles.size * n_detectors),
+    )
+
+
+def _to_torch_csr(matrix: scipy.sparse.csr_matrix) -> torch.Tensor:
+    small = max(matrix.nnz, *matrix.shape) < np.iinfo(np.int32).max
+    index_dtype = np.int32 if small else np.int64
+    with warnings.catch_warnings():
+        # torch flags sparse CSR support as beta on first use.
+        warnings.simplefilter("ignore", UserWarning)
+        return torch.sparse_csr_tensor(
+            torch.from_numpy(matrix.indptr.astype(index_dtype)),
+            torch.from_numpy(matrix.indices.astype(index_dtype)),
+            torch.from_numpy(matrix.data.astype(np.float64)),
+            size=matrix.shape,
+            check_invariants=False,
+        )
+
+
+class _MatrixCache:
+    """A float64 CSR matrix kept once per (dtype, device); copies share indices."""
+
+    def __init__(self, master: torch.Tensor):
+        self.master = master
+        self._copies: dict[tuple[torch.dtype, torch.device], torch.Tensor] = {
+            (master.dtype, master.device): master
+        }
+
+    def like(self, x: torch.Tensor) -> torch.Tensor:
+        key = (x.dtype, x.device)
+        if key not in self._copies:
+            m = self.master
+            self._copies[key] = torch.sparse_csr_tensor(
+                m.crow_indices().to(x.device),
+                m.col_indices().to(x.device),
+                m.values().to(device=x.device, dtype=x.dtype),
+                size=m.shape,
+                check_invariants=False,
+            )
+        return self._copies[key]
+
+
+def _apply(matrix: torch.Tensor, x: torch.Tensor, out_shape: Shape) -> torch.Tensor:
+    """``matrix @ x`` on the flattened trailing two axes of ``x``."""
+    lead = x.shape[:-2]
+    columns = x.reshape(-1, x.shape[-2] * x.shape[-1]).T.contiguous()
+    return (matrix @ columns).T.reshape(*lead, *out_shape)
+
+
+class ParallelProjection(LinearOperator):
+    """Parallel-beam projection of an image: strip integrals along parallel lines.
+
+    Maps an ``(H, W)`` image to a sinogram of shape ``(n_angles, n_detectors)``
+    (row ``i`` is the projection at ``angles[i]``). The adjoint is the matching
+    backprojection: both use one precomputed sparse matrix and its exact
+    transpose, so ``<A x, y> = <x, A^T y>`` holds to rounding.
+
+    Parameters
+    ----------
+    shape : tuple of int
+        ``(H, W)`` of the images.
+    angles : array_like
+        Projection angles in degrees, a finite non-empty 1-D array (any real
+        values; repeats allowed).
+    n_detectors : int, optional
+        Number of detector bins. Default ``ceil(sqrt(H^2 + W^2))``, enough to
+        see the whole image at every angle; fewer bins truncate the detector
+        symmetrically about the rotation centre.
+
+    Notes
+    -----
+    Geometry, all in pixel units. Pixels are unit squares; the pixel in row
+    ``i`` and column ``j`` is centred at ``x = j - (W - 1)/2`` (rightwards) and
+    ``y = (H - 1)/2 - i`` (upwards, i.e. row 0 is the top of the image), so the
+    rotation centre is the centre of the image. Detector bins have width 1;
+    bin ``k`` is centred at ``s_k = k - (n_detectors - 1)/2``. At angle
+    ``theta`` the bin collects the lines ``x cos(theta) + y sin(theta) = s``
+    with ``|s - s_k| <= 1/2``: angle 0 sums each column (bin index grows from
+    the left edge of the image to the right), angle 90 sums each row (bin index
+    grows from the bottom row to the top row), and increasing angles turn the
+    detector direction ``(cos theta, sin theta)`` counter-clockwise as the
+    image is displayed (row 0 on top).
+
+    Each entry is the exact bin average of the line integral of one pixel's
+    indicator,
+
+    .. math::
+
+        A_{(\\theta, k), p} = \\int_{s_k - 1/2}^{s_k + 1/2}
+            \\tau_\\theta(s - s_p) \\, ds, \\qquad
+        s_p = x_p \\cos\\theta + y_p \\sin\\theta,
+
+    where the pixel profile :math:`\\tau_\\theta` is the trapezoid obtained by
+    convolving boxes of widths :math:`|\\cos\\theta|` and
+    :math:`|\\sin\\theta|` (unit area). So the sinogram holds bin-averaged line
+    integrals of the piecewise-constant image, every entry is >= 0, and each
+    pixel's weights sum to 1 per angle (its area) whenever the detector sees
+    it. Each pixel touches at most three bins per angle.
+
+    Norm: the entries are nonnegative, so :meth:`norm_bound` is the certified
+    Collatz-Wielandt bound of the base class; :meth:`norm` is its float64
+    power iteration (relative tolerance ``POWER_ITERATION_RTOL``). A simple
+    certified alternative is Schur's bound ``||A||^2 <= max column sum x max
+    row sum`` (the first is ``n_angles``). When the sinogram has fewer entries
+    than the image, the operator has a null space and
+    :meth:`smallest_singular_value` is 0; otherwise it is unknown (None).
+
+    References
+    ----------
+    .. [1] A. C. Kak and M. Slaney, *Principles of Computerized Tomographic
+       Imaging*, IEEE Press, 1988, ch. 3 (parallel projections, the Radon
+       transform), doi:10.1137/1.9780898719277.
+    .. [2] Y. Long, J. A. Fessler and J. M. Balter, "3D forward and
+       back-projection for X-ray CT using separable footprints", IEEE Trans.
+       Med. Imaging 29(11), 2010, doi:10.1109/TMI.2010.2050898 (pixel
+       footprints integrated over detector bins).
+    """
+
+    def __init__(self, shape: Shape, angles: Any, n_detectors: int | None = None):
+        shape = _as_shape(shape, "shape")
+        self._angles = _validate_angles(angles)
+        self.n_detectors = _validate_detectors(n_detectors, shape)
+        super().__init__(shape, (self._angles.size, self.n_detectors))
+        transposed = _transposed_system_matrix(shape, self._angles, self.n_detectors)
+        self._matrix = _MatrixCache(_to_torch_csr(transposed.T.tocsr()))
+        self._transposed = _MatrixCache(_to_torch_csr(transposed))
+
+    @property
+    def angles(self) -> np.ndarray:
+        """Projection angles in degrees (a copy)."""
+        return self._angles.copy()
+
+    @property
+    def nnz(self) -> int:
+        """Number of stored nonzero entries of the system matrix."""
+        return int(self._matrix.master.values().numel())
+
+    def _forward(self, x: torch.Tensor) -> torch.Tensor:
+        return _apply(self._matrix.like(x), x, self.out_shape)
+
+    def _adjoint(self, y: torch.Tensor) -> torch.Tensor:
+        return _apply(self._transposed.like(y), y, self.in_shape)
+
+    @property
+    def nonnegative(self) -> bool:
+        return True
+
+    def smallest_singular_value(self) -> float | None:
+        # rank(A) <= number of rows < number of columns gives a null space.
+        rows = self.out_shape[0] * self.out_shape[1]
+        return 0.0 if rows < self.in_shape[0] * self.in_shape[1] else None
+
+    def _describe(self) -> str:
+        low, high = float(self._angles.min()), float(self._angles.max())
+        return f"{self._angles.size} angles in [{low:g}, {high:g}] deg, {self.n_detectors} detectors"
+
+
+_WINDOWS = {
+    "ramp": lambda f: torch.ones_like(f),
+    "shepp-logan": lambda f: torch.sinc(f),
+    "cosine": lambda f: torch.cos(math.pi * f),
+    "hamming": lambda f: 0.54 + 0.46 * torch.cos(2.0 * math.pi * f),
+    "hann": lambda f: 0.5 + 0.5 * torch.cos(2.0 * math.pi * f),
+}
+
+
+def _filter_response(n_detectors: int, filter: str, cutoff: float) -> tuple[torch.Tensor, int]:
+    """Frequency response of the apodised ramp filter on a zero-padded grid."""
+    padded = 1 << max(6, (2 * n_detectors - 1).bit_length())
+    n = torch.cat([torch.arange(0, padded // 2), torch.arange(-padded // 2, 0)]).double()
+    kernel = torch.zeros(padded, dtype=torch.float64)
+    odd = n.remainder(2) == 1
+    kernel[odd] = -1.0 / (math.pi * n[odd]) ** 2
+    kernel[0] = 0.25
+    response = torch.fft.rfft(kernel).real
+    frequency = torch.fft.rfftfreq(padded, dtype=torch.float64)  # cycles per bin, <= 1/2
+    scaled = frequency / cutoff
+    window = torch.where(scaled <= 0.5, _WINDOWS[filter](scaled), torch.zeros_like(scaled))
+    return response * window, padded
+
+
+def filtered_backprojection(
+    sinogram: ArrayLike,
+    operator: ParallelProjection,
+    *,
+    filter: str = "ramp",
+    cutoff: float = 1.0,
+) -> ArrayLike:
+    """Filtered backprojection (FBP) reconstruction from a parallel-beam sinogram.
+
+    Parameters
+    ----------
+    sinogram : numpy.ndarray or torch.Tensor
+        ``(n_angles, n_detectors)`` or ``(N, C, n_angles, n_detectors)``,
+        float32 or float64, in the geometry of ``operator``.
+    operator : ParallelProjection
+        The projector that describes the scan; its adjoint backprojects.
+    filter : {"cosine", "hamming", "hann", "ramp", "shepp-logan"}
+        The ramp filter alone or multiplied by an apodisation window
+        ``W(f)`` (``f`` in cycles per detector bin, Nyquist 1/2):
+        Shepp-Logan ``sinc(f)``, cosine ``cos(pi f)``, Hamming
+        ``0.54 + 0.46 cos(2 pi f)``, Hann ``(1 + cos(2 pi f))/2``. The
+        windows trade resolution for less noise.
+    cutoff : float
+        Fraction of the Nyquist frequency in ``(0, 1]`` above which the filter
+        is zero; the window is stretched to end there.
+
+    Returns
+    -------
+    numpy.ndarray or torch.Tensor
+        Image of the operator's ``in_shape`` (with the same leading axes), of
+        the same kind, dtype and device as ``sinogram``.
+
+    Raises
+    ------
+    TypeError
+        If ``operator`` is not a :class:`ParallelProjection` or ``sinogram``
+        is not a float array.
+    ValueError
+        If the sinogram shape does not match the operator, ``filter`` is not
+        one of the options or ``cutoff`` is outside ``(0, 1]``.
+
+    Notes
+    -----
+    Discretisation of the inversion formula
+    ``f(x, y) = int_0^pi (p_theta * h)(x cos theta + y sin theta) d theta``
+    following Kak & Slaney, ch. 3, eqs. (61)-(63): each projection is
+    convolved (via zero-padded FFTs, padding at least ``2 n_detectors - 1``
+    so no wrap-around) with the band-limited spatial ramp kernel of unit
+    sampling interval, ``h(0) = 1/4``, ``h(n) = -1/(pi n)^2`` for odd ``n``
+    and 0 for even ``n``, whose frequency response is then multiplied by the
+    window; the filtered projections are backprojected with the operator's
+    adjoint and weighted by ``pi / n_angles``. That weight is exact for angles
+    evenly spaced over 180 degrees (or a multiple of it); for sparse or
+    limited-angle scans FBP is only a baseline that shows streaks and missing
+    wedges.
+
+    References
+    ----------
+    .. [1] A. C. Kak and M. Slaney, *Principles of Computerized Tomographic
+       Imaging*, IEEE Press, 1988, ch. 3, doi:10.1137/1.9780898719277.
+    .. [2] L. A. Shepp and B. F. Logan, "The Fourier reconstruction of a head
+       section", IEEE Trans. Nucl. Sci. 21(3), 1974, pp. 21-43,
+       doi:10.1109/TNS.1974.6499235.
+    """
+    if not isinstance(operator, ParallelProjection):
+        raise TypeError(
+            f"`operator` must be a ParallelProjection, got {type(operator).__name__}"
+        )
+    if filter not in _WINDOWS:
+        raise ValueError(f"`filter` must be one of {sorted(_WINDOWS)}, got {filter!r}")
+    if isinstance(cutoff, bool) or not isinstance(cutoff, (int, float)) or not 0.0 < cutoff <= 1.0:
+        raise ValueError(f"`cutoff` must be a number in (0, 1], got {cutoff!r}")
+    tensor, kind = to_tensor(sinogram, "sinogram")
+    check_image_shape(tensor, operator.out_shape, "sinogram", "operator's output shape")
+    response, padded = _filter_response(operator.n_detectors, filter, float(cutoff))
+    response = response.to(device=tensor.device, dtype=tensor.dtype)
+    spectrum = torch.fft.rfft(tensor, n=padded, dim=-1) * response
+    filtered = torch.fft.irfft(spectrum, n=padded, dim=-1)[..., : operator.n_detectors]
+    image = operator._adjoint(filtered) * (math.pi / operator.out_shape[0])
+    return from_tensor(image, kind)
