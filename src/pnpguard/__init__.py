@@ -8,7 +8,9 @@ and monitor every run's fixed-point residual.
 from .fidelity import LeastSquares
 from .operators import *  # noqa: F403
 from .operators import __all__ as _operators_all
+from .denoisers import *  # noqa: F403
+from .denoisers import __all__ as _denoisers_all
 
 __version__ = "0.1.0"
 
-__all__ = ["LeastSquares", *_operators_all]
+__all__ = ["LeastSquares", *_operators_all, *_denoisers_all]
