@@ -5,7 +5,11 @@ into admissible step sizes through published theorems or refuse with a reason,
 and monitor every run's fixed-point residual.
 """
 
+from .check import *  # noqa: F403
+from .check import __all__ as _check_all
 from .fidelity import LeastSquares
+from .guarantee import *  # noqa: F403
+from .guarantee import __all__ as _guarantee_all
 from .operators import *  # noqa: F403
 from .operators import __all__ as _operators_all
 from .denoisers import *  # noqa: F403
@@ -13,4 +17,4 @@ from .denoisers import __all__ as _denoisers_all
 
 __version__ = "0.1.0"
 
-__all__ = ["LeastSquares", *_operators_all, *_denoisers_all]
+__all__ = ["LeastSquares", *_operators_all, *_denoisers_all, *_check_all, *_guarantee_all]
