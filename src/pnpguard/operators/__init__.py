@@ -4,6 +4,7 @@ from ._base import LinearOperator, NormBound, power_iteration
 from ._convolution import Convolution
 from ._decimation import Decimation
 from ._mask import PixelMask, dead_lines_mask, random_pixel_mask, scratch_mask
+from ._projection import ParallelProjection, filtered_backprojection
 from ._psf import disk_psf, gaussian_psf, motion_psf
 
 __all__ = [
@@ -11,9 +12,11 @@ __all__ = [
     "Decimation",
     "LinearOperator",
     "NormBound",
+    "ParallelProjection",
     "PixelMask",
     "dead_lines_mask",
     "disk_psf",
+    "filtered_backprojection",
     "gaussian_psf",
     "motion_psf",
     "power_iteration",

@@ -13,8 +13,9 @@ import torch
 from .._arrays import ArrayLike, as_float_tensor, check_image_shape, from_tensor, to_tensor
 from ._base import LinearOperator, Shape, _as_shape
 
-#: Pixel rows processed together while the system matrix is assembled.
-_ROWS_PER_BLOCK = 16
+#: About this many (pixel, angle) pairs are processed together while the
+#: system matrix is assembled (small blocks stay in cache).
+_BLOCK_ENTRIES = 1 << 17
 
 
 def _validate_angles(angles: Any) -> np.ndarray:
@@ -45,64 +46,72 @@ def _lower_footprint_cdf(t: np.ndarray, wide: np.ndarray, narrow: np.ndarray) ->
     """
     outer = 0.5 * (wide + narrow)
     inner = 0.5 * (wide - narrow)
-    ramp = np.maximum(t + outer, 0.0)
+    ramp = np.clip(t + outer, 0.0, narrow)  # the clip only acts off the ramp branch
     denominator = np.where(narrow > 0, 2.0 * wide * narrow, 1.0)
     return np.where(t < -inner, ramp * ramp / denominator, 0.5 + t / wide)
 
 
-def _transposed_system_matrix(shape: Shape, angles: np.ndarray, n_detectors: int) -> scipy.sparse.csr_matrix:
+def _transposed_system_matrix(
+    shape: Shape, angles: np.ndarray, n_detectors: int
+) -> scipy.sparse.csr_matrix:
     """``A^T`` as a float64 CSR matrix (rows: pixels, columns: (angle, bin))."""
     height, width = shape
+    n_angles = angles.size
     theta = np.deg2rad(angles)
     cos, sin = np.cos(theta), np.sin(theta)
-    wide = np.maximum(np.abs(cos), np.abs(sin))[None, :]
-    narrow = np.minimum(np.abs(cos), np.abs(sin))[None, :]
+    wide = np.maximum(np.abs(cos), np.abs(sin))
+    narrow = np.minimum(np.abs(cos), np.abs(sin))
     x = np.arange(width) - 0.5 * (width - 1)
     y = 0.5 * (height - 1) - np.arange(height)
-    base = (np.arange(angles.size) * n_detectors)[None, :, None]
-    offsets = np.array([-1, 0, 1])
+    index_dtype = np.int32 if n_angles * n_detectors < np.iinfo(np.int32).max else np.int64
+    first_column = (np.arange(n_angles) * n_detectors).astype(index_dtype)[:, None]
+    offsets = np.array([-1, 0, 1], dtype=index_dtype)
+    block = max(1, _BLOCK_ENTRIES // (width * n_angles))
     indptr = [np.zeros(1, dtype=np.int64)]
     indices, data = [], []
     count = 0
-    for start in range(0, height, _ROWS_PER_BLOCK):
-        rows = y[start : start + _ROWS_PER_BLOCK]
+    for start in range(0, height, block):
+        rows = y[start : start + block, None, None]
         # Pixel centres in detector-bin units (bin k is centred at k).
-        position = (
-            (rows[:, None, None] * sin[None, None, :] + x[None, :, None] * cos[None, None, :])
-            .reshape(-1, angles.size)
-            + 0.5 * (n_detectors - 1)
-        )
+        position = (rows * sin + x[:, None] * cos).reshape(-1, n_angles) + 0.5 * (n_detectors - 1)
         nearest = np.rint(position)
         frac = position - nearest
-        below = _lower_footprint_cdf(-0.5 - frac, wide, narrow)
-        above = _lower_footprint_cdf(-0.5 + frac, wide, narrow)
-        weights = np.stack([below, 1.0 - below - above, above], axis=-1)
-        bins = nearest[..., None].astype(np.int64) + offsets
+        weights = np.empty(position.shape + (3,))
+        weights[..., 0] = _lower_footprint_cdf(-0.5 - frac, wide, narrow)
+        weights[..., 2] = _lower_footprint_cdf(-0.5 + frac, wide, narrow)
+        weights[..., 1] = 1.0 - weights[..., 0] - weights[..., 2]
+        bins = nearest.astype(index_dtype)[..., None] + offsets
         keep = (weights > 0) & (bins >= 0) & (bins < n_detectors)
-        indices.append((bins + base)[keep])
+        bins += first_column
+        indices.append(bins[keep])
         data.append(weights[keep])
-        per_pixel = keep.reshape(keep.shape[0], -1).sum(axis=1)
+        per_pixel = np.count_nonzero(keep.reshape(keep.shape[0], -1), axis=1)
         indptr.append(count + np.cumsum(per_pixel))
         count += int(per_pixel.sum())
     return scipy.sparse.csr_matrix(
         (np.concatenate(data), np.concatenate(indices), np.concatenate(indptr)),
-        shape=(height * width, angles.size * n_detectors),
+        shape=(height * width, n_angles * n_detectors),
     )
+
+
+def _csr_tensor(
+    crow: torch.Tensor, col: torch.Tensor, values: torch.Tensor, size: Shape
+) -> torch.Tensor:
+    with warnings.catch_warnings():
+        # torch flags sparse CSR support as beta on first use.
+        warnings.simplefilter("ignore", UserWarning)
+        return torch.sparse_csr_tensor(crow, col, values, size=size, check_invariants=False)
 
 
 def _to_torch_csr(matrix: scipy.sparse.csr_matrix) -> torch.Tensor:
     small = max(matrix.nnz, *matrix.shape) < np.iinfo(np.int32).max
     index_dtype = np.int32 if small else np.int64
-    with warnings.catch_warnings():
-        # torch flags sparse CSR support as beta on first use.
-        warnings.simplefilter("ignore", UserWarning)
-        return torch.sparse_csr_tensor(
-            torch.from_numpy(matrix.indptr.astype(index_dtype)),
-            torch.from_numpy(matrix.indices.astype(index_dtype)),
-            torch.from_numpy(matrix.data.astype(np.float64)),
-            size=matrix.shape,
-            check_invariants=False,
-        )
+    return _csr_tensor(
+        torch.from_numpy(matrix.indptr.astype(index_dtype)),
+        torch.from_numpy(matrix.indices.astype(index_dtype)),
+        torch.from_numpy(matrix.data.astype(np.float64)),
+        matrix.shape,
+    )
 
 
 class _MatrixCache:
@@ -110,20 +119,18 @@ class _MatrixCache:
 
     def __init__(self, master: torch.Tensor):
         self.master = master
-        self._copies: dict[tuple[torch.dtype, torch.device], torch.Tensor] = {
-            (master.dtype, master.device): master
-        }
+        self._copies = {(master.dtype, master.device): master}
 
     def like(self, x: torch.Tensor) -> torch.Tensor:
+        """The matrix in ``x``'s dtype and on its device."""
         key = (x.dtype, x.device)
         if key not in self._copies:
             m = self.master
-            self._copies[key] = torch.sparse_csr_tensor(
+            self._copies[key] = _csr_tensor(
                 m.crow_indices().to(x.device),
                 m.col_indices().to(x.device),
                 m.values().to(device=x.device, dtype=x.dtype),
-                size=m.shape,
-                check_invariants=False,
+                m.shape,
             )
         return self._copies[key]
 
@@ -155,6 +162,14 @@ class ParallelProjection(LinearOperator):
         see the whole image at every angle; fewer bins truncate the detector
         symmetrically about the rotation centre.
 
+    Raises
+    ------
+    TypeError
+        If ``angles`` is not numeric or ``n_detectors`` is not an integer.
+    ValueError
+        If ``shape`` is not a pair of positive integers, ``angles`` is not a
+        finite non-empty 1-D array or ``n_detectors < 1``.
+
     Notes
     -----
     Geometry, all in pixel units. Pixels are unit squares; the pixel in row
@@ -185,23 +200,44 @@ class ParallelProjection(LinearOperator):
     pixel's weights sum to 1 per angle (its area) whenever the detector sees
     it. Each pixel touches at most three bins per angle.
 
+    Storage: the matrix and its transpose are kept as sparse CSR tensors
+    (about ``2.3 H W n_angles`` nonzeros each, 12 bytes per nonzero in
+    float64 plus 4 per float32 copy: about 0.9 GB for 256 x 256 pixels and
+    180 angles in both precisions), built once in a few seconds.
+
     Norm: the entries are nonnegative, so :meth:`norm_bound` is the certified
-    Collatz-Wielandt bound of the base class; :meth:`norm` is its float64
-    power iteration (relative tolerance ``POWER_ITERATION_RTOL``). A simple
-    certified alternative is Schur's bound ``||A||^2 <= max column sum x max
-    row sum`` (the first is ``n_angles``). When the sinogram has fewer entries
-    than the image, the operator has a null space and
-    :meth:`smallest_singular_value` is 0; otherwise it is unknown (None).
+    Collatz-Wielandt bound of the base class and :meth:`norm` its float64
+    power iteration (stopping rule and tolerance in :func:`power_iteration`).
+    The top singular value is well separated: at 256 x 256 x 180 each of
+    them takes about a dozen forward/adjoint pairs.
+    When the sinogram has fewer entries than the image, the operator has a
+    null space and :meth:`smallest_singular_value` is 0; otherwise it is
+    unknown (None).
 
     References
     ----------
     .. [1] A. C. Kak and M. Slaney, *Principles of Computerized Tomographic
-       Imaging*, IEEE Press, 1988, ch. 3 (parallel projections, the Radon
-       transform), doi:10.1137/1.9780898719277.
+       Imaging*, IEEE Press, 1988 (SIAM reprint 2001,
+       doi:10.1137/1.9780898719277), ch. 3 (parallel projections).
     .. [2] Y. Long, J. A. Fessler and J. M. Balter, "3D forward and
        back-projection for X-ray CT using separable footprints", IEEE Trans.
        Med. Imaging 29(11), 2010, doi:10.1109/TMI.2010.2050898 (pixel
        footprints integrated over detector bins).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> op = ParallelProjection((64, 64), np.arange(0.0, 180.0, 4.0))
+    >>> op.out_shape
+    (45, 91)
+    >>> image = np.zeros((64, 64))
+    >>> image[20:40, 28:36] = 1.0
+    >>> sinogram = op.forward(image)
+    >>> print(np.round(sinogram.sum(axis=1)[:3], 6))  # each projection keeps the mass
+    [160. 160. 160.]
+    >>> fbp = filtered_backprojection(sinogram, op, filter="hann")
+    >>> fbp.shape
+    (64, 64)
     """
 
     def __init__(self, shape: Shape, angles: Any, n_detectors: int | None = None):
@@ -240,7 +276,8 @@ class ParallelProjection(LinearOperator):
 
     def _describe(self) -> str:
         low, high = float(self._angles.min()), float(self._angles.max())
-        return f"{self._angles.size} angles in [{low:g}, {high:g}] deg, {self.n_detectors} detectors"
+        count = self._angles.size
+        return f"{count} angles in [{low:g}, {high:g}] deg, {self.n_detectors} detectors"
 
 
 _WINDOWS = {
@@ -312,7 +349,7 @@ def filtered_backprojection(
     -----
     Discretisation of the inversion formula
     ``f(x, y) = int_0^pi (p_theta * h)(x cos theta + y sin theta) d theta``
-    following Kak & Slaney, ch. 3, eqs. (61)-(63): each projection is
+    following Kak & Slaney, ch. 3: each projection is
     convolved (via zero-padded FFTs, padding at least ``2 n_detectors - 1``
     so no wrap-around) with the band-limited spatial ramp kernel of unit
     sampling interval, ``h(0) = 1/4``, ``h(n) = -1/(pi n)^2`` for odd ``n``
@@ -326,10 +363,11 @@ def filtered_backprojection(
     References
     ----------
     .. [1] A. C. Kak and M. Slaney, *Principles of Computerized Tomographic
-       Imaging*, IEEE Press, 1988, ch. 3, doi:10.1137/1.9780898719277.
+       Imaging*, IEEE Press, 1988 (SIAM reprint 2001,
+       doi:10.1137/1.9780898719277), ch. 3 (filtered backprojection).
     .. [2] L. A. Shepp and B. F. Logan, "The Fourier reconstruction of a head
-       section", IEEE Trans. Nucl. Sci. 21(3), 1974, pp. 21-43,
-       doi:10.1109/TNS.1974.6499235.
+       section", IEEE Trans. Nucl. Sci. 21(3), 1974 (the Shepp-Logan
+       window).
     """
     if not isinstance(operator, ParallelProjection):
         raise TypeError(
