@@ -10,6 +10,8 @@ from .check import __all__ as _check_all
 from .fidelity import LeastSquares
 from .guarantee import *  # noqa: F403
 from .guarantee import __all__ as _guarantee_all
+from .metrics import psnr, ssim
+from . import phantoms
 from .operators import *  # noqa: F403
 from .operators import __all__ as _operators_all
 from .denoisers import *  # noqa: F403
@@ -17,4 +19,4 @@ from .denoisers import __all__ as _denoisers_all
 
 __version__ = "0.1.0"
 
-__all__ = ["LeastSquares", *_operators_all, *_denoisers_all, *_check_all, *_guarantee_all]
+__all__ = ["LeastSquares", "psnr", "ssim", "phantoms", *_operators_all, *_denoisers_all, *_check_all, *_guarantee_all]
