@@ -5,18 +5,30 @@ into admissible step sizes through published theorems or refuse with a reason,
 and monitor every run's fixed-point residual.
 """
 
+from . import phantoms
 from .check import *  # noqa: F403
 from .check import __all__ as _check_all
+from .denoisers import *  # noqa: F403
+from .denoisers import __all__ as _denoisers_all
 from .fidelity import LeastSquares
 from .guarantee import *  # noqa: F403
 from .guarantee import __all__ as _guarantee_all
 from .metrics import psnr, ssim
-from . import phantoms
 from .operators import *  # noqa: F403
 from .operators import __all__ as _operators_all
-from .denoisers import *  # noqa: F403
-from .denoisers import __all__ as _denoisers_all
+from .solvers import *  # noqa: F403
+from .solvers import __all__ as _solvers_all
 
 __version__ = "0.1.0"
 
-__all__ = ["LeastSquares", "psnr", "ssim", "phantoms", *_operators_all, *_denoisers_all, *_check_all, *_guarantee_all]
+__all__ = [
+    "LeastSquares",
+    "phantoms",
+    "psnr",
+    "ssim",
+    *_check_all,
+    *_denoisers_all,
+    *_guarantee_all,
+    *_operators_all,
+    *_solvers_all,
+]

@@ -181,9 +181,6 @@ def _route_map(guarantee: Guarantee, step: float) -> tuple[MapKind, float, tuple
         rho = th.forward_backward_contraction(eps, step, mu, lip)
         return "contraction", rho, (0.0, 2.0 / (1.0 + rho))
     if guarantee.route == "firmly nonexpansive":
-        if mu > 0:
-            rho = th.reflected_prox_lipschitz(step, mu, lip)
-            return "contraction", rho, (0.0, 4.0 / (1.0 + rho))
         return "averaged", 0.5, (0.0, 2.0)
     reflected = (
         th.reflected_denoiser_lipschitz(theta)
@@ -316,14 +313,20 @@ def _forward_backward_routes(c: _Constants) -> tuple[list[Guarantee], list[str]]
     return routes, reasons
 
 
+def _inside(preferred: float, window: tuple[float, float], fallback: float) -> float:
+    """``preferred`` when it lies in the open window, else ``fallback``."""
+    return preferred if window[0] < preferred < window[1] else fallback
+
+
 def _douglas_rachford_routes(algorithm: str, c: _Constants) -> tuple[list[Guarantee], list[str]]:
     routes, reasons = [], []
     lip, mu = c.lipschitz, c.mu
-    gamma_star = th.optimal_prox_parameter(mu, lip) if mu > 0 else 1.0 / lip
+    # gamma = 1/L matches the forward-backward step, so the fixed points weigh data and
+    # denoiser alike (common practice); 1/sqrt(mu L) (the fastest contraction) when 1/L
+    # falls outside a contraction window, which always contains it.
+    gamma = 1.0 / lip
     if c.theta <= 0.5:
-        routes.append(
-            _guarantee(algorithm, "firmly nonexpansive", gamma_star, (0.0, math.inf), 1.0, _DR_FIRM, c)
-        )
+        routes.append(_guarantee(algorithm, "firmly nonexpansive", gamma, (0.0, math.inf), 1.0, _DR_FIRM, c))
         return routes, reasons
     if mu <= 0:
         reasons.append(
@@ -332,12 +335,12 @@ def _douglas_rachford_routes(algorithm: str, c: _Constants) -> tuple[list[Guaran
             "known lower singular value (mu = 0)"
         )
         return routes, reasons
+    gamma_star = th.optimal_prox_parameter(mu, lip)
     if c.theta < 1.0:
         window = th.douglas_rachford_window(th.reflected_denoiser_lipschitz(c.theta), mu, lip)
         if window is not None:
-            routes.append(
-                _guarantee(algorithm, "strongly convex", gamma_star, window, 1.0, _DR_CONTRACTION, c)
-            )
+            step = _inside(gamma, window, gamma_star)
+            routes.append(_guarantee(algorithm, "strongly convex", step, window, 1.0, _DR_CONTRACTION, c))
         else:
             reasons.append(
                 f"strongly convex route: no gamma makes (4 theta - 1) delta(gamma) < 1 with "
@@ -348,9 +351,8 @@ def _douglas_rachford_routes(algorithm: str, c: _Constants) -> tuple[list[Guaran
         reasons.append(_not_averaged_reason(c))
     window = th.douglas_rachford_window(1.0 + 2.0 * c.eps, mu, lip)
     if window is not None:
-        routes.append(
-            _guarantee(algorithm, "residual contraction", gamma_star, window, 1.0, _DR_CONTRACTION, c)
-        )
+        step = _inside(gamma, window, gamma_star)
+        routes.append(_guarantee(algorithm, "residual contraction", step, window, 1.0, _DR_CONTRACTION, c))
     return routes, reasons
 
 
@@ -451,10 +453,12 @@ def admissible(
        Mann). Recommended: step ``1/L``, relaxation 1.
     2. Forward-backward, ``D`` only nonexpansive: relaxation in ``(0, 1)``.
     3. Douglas-Rachford / ADMM, theta <= 1/2: any ``gamma > 0``; relaxation of
-       ``T = (I + R_f R_D)/2`` in ``(0, 2)``. Recommended ``gamma = 1/sqrt(mu L)``
-       when ``mu > 0`` (then also a contraction), else ``1/L`` (common practice).
+       ``T = (I + R_f R_D)/2`` in ``(0, 2)``. Recommended ``gamma = 1/L``, the
+       forward-backward step, so that the fixed points weigh data and denoiser
+       alike (common practice).
     4. Douglas-Rachford / ADMM, 1/2 < theta < 1, ``mu > 0``: ``gamma`` in the
-       window where ``(4 theta - 1) delta(gamma) < 1`` (Giselsson & Boyd 2017).
+       window where ``(4 theta - 1) delta(gamma) < 1`` (Giselsson & Boyd 2017);
+       recommended ``1/L`` when inside, else ``1/sqrt(mu L)``.
     5. Residual route (Ryu et al. 2019): ``D - I`` eps-Lipschitz and ``mu > 0``:
        forward-backward steps in ``(1/(mu (1 + 1/eps)), 2/L - 1/(L (1 + 1/eps)))``;
        Douglas-Rachford with ``R_D`` bounded by ``1 + 2 eps`` (derived).

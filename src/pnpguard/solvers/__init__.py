@@ -1,0 +1,17 @@
+"""Guarded PnP solvers with a fixed-point residual monitor."""
+
+from ._algorithms import admm, douglas_rachford, forward_backward
+from ._monitor import Flag, Policy
+from ._plots import plot_run
+from ._result import IterationState, Reconstruction
+
+__all__ = [
+    "Flag",
+    "IterationState",
+    "Policy",
+    "Reconstruction",
+    "admm",
+    "douglas_rachford",
+    "forward_backward",
+    "plot_run",
+]

@@ -1,0 +1,404 @@
+"""Guarded PnP solvers: forward-backward, Douglas-Rachford and ADMM."""
+
+from __future__ import annotations
+
+import math
+import time
+from collections.abc import Callable
+from typing import Any
+
+import numpy as np
+import torch
+
+from .._arrays import ArrayLike, from_tensor, to_tensor
+from ..check import DEFAULT_BUDGET, CheckReport, check_denoiser
+from ..denoisers import Denoiser, as_denoiser
+from ..fidelity import LeastSquares
+from ..guarantee import DEFAULT_MARGIN, Guarantee, admissible
+from ..metrics import psnr, ssim
+from ._monitor import Flag, Monitor, Policy
+from ._result import IterationState, Reconstruction
+from ._schemes import DouglasRachford, ForwardBackward
+
+Callback = Callable[[IterationState], Any]
+
+
+def _positive(value: Any, name: str) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not (
+        math.isfinite(value) and value > 0
+    ):
+        raise ValueError(f"`{name}` must be a positive finite number, got {value!r}")
+    return float(value)
+
+
+def _image(value: Any, name: str, fidelity: LeastSquares) -> torch.Tensor:
+    tensor, _ = to_tensor(value, name)
+    if tuple(tensor.shape) != fidelity.image_shape and tuple(tensor.shape[-2:]) != fidelity.op.in_shape:
+        raise ValueError(
+            f"`{name}` has shape {tuple(tensor.shape)} but the unknown image has shape "
+            f"{fidelity.image_shape}"
+        )
+    return tensor.to(dtype=fidelity.y.dtype, device=fidelity.y.device).expand(fidelity.image_shape).clone()
+
+
+def default_start(fidelity: LeastSquares) -> torch.Tensor:
+    """One gradient step of length ``1/L`` from zero: ``A^T y / ||A||^2``."""
+    back = fidelity.op._adjoint(fidelity.y)
+    bound = fidelity.op.norm_bound().value
+    return back / bound**2 if bound > 0 else back
+
+
+class _Run:
+    """Shared set-up and loop of the three solvers."""
+
+    def __init__(self, algorithm, fidelity, denoiser, options):
+        if not isinstance(fidelity, LeastSquares):
+            raise TypeError(f"`fidelity` must be a pnpguard LeastSquares, got {type(fidelity).__name__}")
+        self.algorithm = algorithm
+        self.fidelity = fidelity
+        self.denoiser = as_denoiser(denoiser)
+        self.options = options
+        o = options
+        if isinstance(o["max_iter"], bool) or not isinstance(o["max_iter"], int) or o["max_iter"] < 1:
+            raise ValueError(f"`max_iter` must be a positive integer, got {o['max_iter']!r}")
+        if not (isinstance(o["tol"], (int, float)) and math.isfinite(o["tol"]) and o["tol"] >= 0):
+            raise ValueError(f"`tol` must be a non-negative number, got {o['tol']!r}")
+        if o["callback"] is not None and not callable(o["callback"]):
+            raise TypeError("`callback` must be callable")
+        self.policy = o["policy"] if o["policy"] is not None else Policy()
+        if not isinstance(self.policy, Policy):
+            raise TypeError(f"`policy` must be a pnpguard Policy, got {type(self.policy).__name__}")
+        self.x0 = default_start(fidelity) if o["x0"] is None else _image(o["x0"], "x0", fidelity)
+        self.reference = None
+        if o["reference"] is not None:
+            self.reference = _image(o["reference"], "reference", fidelity)
+            span = float(self.reference.max() - self.reference.min())
+            self.data_range = o["data_range"] or (span if span > 0 else 1.0)
+        self.step = None if o["step"] is None else _positive(o["step"], "step")
+        self.relaxation = None if o["relaxation"] is None else _positive(o["relaxation"], "relaxation")
+
+    # ---------------------------------------------------------------- guard
+    def guard(self) -> tuple[CheckReport | None, Guarantee | None, float]:
+        o = self.options
+        report = o["report"]
+        if report is not None and not isinstance(report, CheckReport):
+            raise TypeError(f"`report` must be a CheckReport, got {type(report).__name__}")
+        if not o["guard"]:
+            if self.step is None:
+                self.step = 1.0 / self.fidelity.lipschitz
+            if self.relaxation is None:
+                self.relaxation = 1.0
+            return report, None, 0.0
+        seconds = 0.0
+        if report is None:
+            start = time.perf_counter()
+            sample = self.x0 if o["sample"] is None else o["sample"]
+            report = check_denoiser(self.denoiser, sample, budget=o["check_budget"], seed=o["seed"])
+            seconds = time.perf_counter() - start
+        guarantee = admissible(self.algorithm, self.fidelity, report, margin=o["margin"])
+        if self.step is None:
+            self.step = guarantee.step
+        if self.relaxation is None:
+            self.relaxation = guarantee.relaxation
+        guarantee.map_constant(self.step, self.relaxation)  # raises Refused outside the set
+        return report, guarantee, seconds
+
+    # ----------------------------------------------------------------- loop
+    def run(self, scheme_type, start_from: Callable[[torch.Tensor, float], torch.Tensor]) -> Reconstruction:
+        """Guard, then iterate ``scheme_type`` from ``start_from(x0, step)``."""
+        report, guarantee, check_seconds = self.guard()
+        scheme = scheme_type(self.fidelity, self.denoiser, self.step)
+        start = start_from(self.x0, self.step)
+        o = self.options
+        certified = (None, math.nan) if guarantee is None else guarantee.map_constant(self.step, self.relaxation)
+        scale = max(float(torch.linalg.vector_norm(start.double())), float(torch.linalg.vector_norm(self.fidelity.y.double())), 1e-12)
+        monitor = Monitor(self.policy, certified[0], certified[1], scale)
+        relaxation = self.relaxation
+        flags: list[Flag] = []
+        residuals: list[float] = []
+        relative: list[float] = []
+        metrics: dict[str, list[float]] = {"psnr": [], "ssim": []} if self.reference is not None else {}
+        v, estimate = start, start
+        back_offs, converged, message = 0, False, "reached max_iter"
+        bar = _progress(o["progress"], o["max_iter"], self.algorithm)
+        begin = time.perf_counter()
+        for iteration in range(o["max_iter"]):
+            image, candidate_estimate = scheme(v)
+            step = relaxation * (image - v)
+            candidate = v + step
+            blow = monitor.blow_up(iteration, candidate)
+            new_flags = [blow] if blow is not None else monitor.observe(iteration, v, step)
+            flags += new_flags
+            action = _strongest(new_flags)
+            if action == "stop":
+                message = f"stopped by the monitor at iteration {iteration}: {new_flags[0].message}"
+                break
+            if action == "back_off":
+                if back_offs == self.policy.max_back_offs:
+                    message = f"stopped after {back_offs} back-offs: {new_flags[0].message}"
+                    break
+                back_offs += 1
+                relaxation *= 0.5
+                monitor.certify(*(_recertify(guarantee, self.step, relaxation)))
+                continue
+            residual = float(torch.linalg.vector_norm((image - v).double()))
+            size = max(float(torch.linalg.vector_norm(v.double())), 1e-300)
+            residuals.append(residual)
+            relative.append(residual / size)
+            v, estimate = candidate, candidate_estimate
+            if self.reference is not None:
+                metrics["psnr"].append(psnr(estimate, self.reference, data_range=self.data_range))
+                metrics["ssim"].append(ssim(estimate, self.reference, data_range=self.data_range))
+            if bar is not None:
+                bar.update(1)
+                bar.set_postfix(residual=f"{relative[-1]:.2e}")
+            if relative[-1] <= o["tol"]:
+                converged, message = True, f"relative residual {relative[-1]:.2e} <= tol {o['tol']:g}"
+                break
+            if o["callback"] is not None:
+                state = IterationState(len(relative), estimate, v, residual, relative[-1])
+                if o["callback"](state) is True:
+                    message = f"stopped by the callback after {len(relative)} iterations"
+                    break
+        seconds = time.perf_counter() - begin
+        if bar is not None:
+            bar.close()
+        notes = ()
+        if guarantee is not None and relaxation != self.relaxation:
+            notes = (f"relaxation lowered from {self.relaxation:g} to {relaxation:g} by back-offs",)
+        return Reconstruction(
+            x=from_tensor(estimate, self.fidelity.kind),
+            algorithm=self.algorithm,
+            converged=converged,
+            iterations=len(relative),
+            message=message,
+            residuals=np.asarray(residuals),
+            relative_residuals=np.asarray(relative),
+            metrics={name: np.asarray(values) for name, values in metrics.items()},
+            flags=tuple(flags),
+            step=self.step,
+            relaxation=relaxation,
+            report=report,
+            guarantee=guarantee,
+            seconds=seconds,
+            check_seconds=check_seconds,
+            back_offs=back_offs,
+            notes=notes,
+        )
+
+
+def _strongest(flags: list[Flag]) -> str:
+    actions = {flag.action for flag in flags}
+    for action in ("stop", "back_off", "warn"):
+        if action in actions:
+            return action
+    return "continue"
+
+
+def _recertify(guarantee: Guarantee | None, step: float, relaxation: float) -> tuple[str | None, float]:
+    if guarantee is None:
+        return None, math.nan
+    return guarantee.map_constant(step, relaxation)
+
+
+def _progress(progress: Any, total: int, name: str):
+    if not progress:
+        return None
+    from tqdm.auto import tqdm
+
+    return tqdm(total=total, desc=name, leave=False)
+
+
+_COMMON_DOC = """
+    Parameters
+    ----------
+    fidelity : LeastSquares
+        Data term ``f``.
+    denoiser : Denoiser, callable or torch.nn.Module
+        Anything :func:`pnpguard.as_denoiser` accepts.
+    step : float, optional
+        {step_doc} Default: the recommended value of :func:`pnpguard.admissible`
+        (``1/L`` for unguarded runs). When given on a guarded run it is checked
+        against the admissible interval.
+    relaxation : float, optional
+        ``lam`` in ``v+ = v + lam (T v - v)``; default the recommended value
+        (1 for unguarded runs); checked like ``step``.
+    report : CheckReport, optional
+        Reuse a check instead of running one (``check_denoiser`` on ``sample``).
+    guard : bool, optional
+        True (default): check, then refuse (raise :class:`pnpguard.Refused`)
+        unless a theorem covers the run. False: run without any guarantee;
+        the monitor still watches residuals, stalls and blow-ups, and the
+        result says that no guarantee applied.
+    x0 : array, optional
+        Initial image; default ``A^T y / ||A||^2`` (one gradient step of length
+        ``1/L`` from zero).
+    max_iter : int, optional
+        Iteration cap (default 300).
+    tol : float, optional
+        Stop when ``||T v - v|| / ||v|| <= tol`` (default 1e-4).
+    callback : callable, optional
+        Called with an :class:`IterationState` after every iteration; returning
+        True stops the run cleanly.
+    reference : array, optional
+        Ground truth: PSNR and SSIM of the estimate are recorded per iteration.
+    data_range : float, optional
+        Intensity range for the metrics; default the reference's max - min.
+    progress : bool, optional
+        Show a tqdm progress bar (default False).
+    policy : Policy, optional
+        What the monitor does on each flag (default: stop on blow-up, warn otherwise).
+    sample : array, optional
+        Images for the denoiser check; default ``x0``.
+    check_budget : int, optional
+        Denoiser calls for the check (default 200).
+    margin : float, optional
+        Safety margin on estimated constants (default 0.05).
+    seed : int, optional
+        Seed of the check's search.
+
+    Returns
+    -------
+    Reconstruction
+
+    Raises
+    ------
+    Refused
+        On a guarded run that no theorem covers, or parameters outside the
+        admissible set.
+"""
+
+
+def forward_backward(
+    fidelity: LeastSquares,
+    denoiser: Any,
+    *,
+    step: float | None = None,
+    relaxation: float | None = None,
+    report: CheckReport | None = None,
+    guard: bool = True,
+    x0: ArrayLike | None = None,
+    max_iter: int = 300,
+    tol: float = 1e-4,
+    callback: Callback | None = None,
+    reference: ArrayLike | None = None,
+    data_range: float | None = None,
+    progress: bool = False,
+    policy: Policy | None = None,
+    sample: Any = None,
+    check_budget: int = DEFAULT_BUDGET,
+    margin: float = DEFAULT_MARGIN,
+    seed: int = 0,
+) -> Reconstruction:
+    """PnP forward-backward: ``x+ = x + lam (D(x - step grad f(x)) - x)``.
+
+    The denoiser replaces the proximal step of the regulariser; the
+    monitored variable is ``x`` and ``T = D (I - step grad f)``.
+    {common}
+    References
+    ----------
+    .. [1] P. L. Combettes and V. R. Wajs, "Signal recovery by proximal
+       forward-backward splitting", Multiscale Model. Simul. 4(4) (2005)
+       1168-1200, doi:10.1137/050626090.
+    .. [2] Y. Sun, B. Wohlberg and U. S. Kamilov, "An online plug-and-play
+       algorithm for regularized image reconstruction", IEEE Trans. Comput.
+       Imaging 5(3) (2019) 395-408, doi:10.1109/TCI.2019.2893568.
+    """
+    run = _Run("forward_backward", fidelity, denoiser, locals_of(locals()))
+    return run.run(ForwardBackward, lambda x0, step: x0)
+
+
+def douglas_rachford(
+    fidelity: LeastSquares,
+    denoiser: Any,
+    *,
+    step: float | None = None,
+    relaxation: float | None = None,
+    report: CheckReport | None = None,
+    guard: bool = True,
+    x0: ArrayLike | None = None,
+    max_iter: int = 300,
+    tol: float = 1e-4,
+    callback: Callback | None = None,
+    reference: ArrayLike | None = None,
+    data_range: float | None = None,
+    progress: bool = False,
+    policy: Policy | None = None,
+    sample: Any = None,
+    check_budget: int = DEFAULT_BUDGET,
+    margin: float = DEFAULT_MARGIN,
+    seed: int = 0,
+) -> Reconstruction:
+    """PnP Douglas-Rachford: ``z+ = z + lam (prox_{gamma f}(2 D z - z) - D z)``.
+
+    The monitored variable is ``z`` and ``T = (I + R_f R_D) / 2``; the
+    estimate is ``prox_{gamma f}(2 D z - z)``. ``step`` is the prox parameter
+    ``gamma``; ``x0`` initialises ``z``.
+    {common}
+    References
+    ----------
+    .. [1] P. L. Lions and B. Mercier, "Splitting algorithms for the sum of two
+       nonlinear operators", SIAM J. Numer. Anal. 16(6) (1979) 964-979,
+       doi:10.1137/0716071.
+    .. [2] P. Giselsson and S. Boyd, IEEE Trans. Autom. Control 62(2) (2017)
+       532-544, doi:10.1109/TAC.2016.2564160.
+    """
+    run = _Run("douglas_rachford", fidelity, denoiser, locals_of(locals()))
+    return run.run(DouglasRachford, lambda x0, step: x0)
+
+
+def admm(
+    fidelity: LeastSquares,
+    denoiser: Any,
+    *,
+    step: float | None = None,
+    relaxation: float | None = None,
+    report: CheckReport | None = None,
+    guard: bool = True,
+    x0: ArrayLike | None = None,
+    max_iter: int = 300,
+    tol: float = 1e-4,
+    callback: Callback | None = None,
+    reference: ArrayLike | None = None,
+    data_range: float | None = None,
+    progress: bool = False,
+    policy: Policy | None = None,
+    sample: Any = None,
+    check_budget: int = DEFAULT_BUDGET,
+    margin: float = DEFAULT_MARGIN,
+    seed: int = 0,
+) -> Reconstruction:
+    """PnP ADMM: ``x+ = prox_{gamma f}(z - u)``, ``z+ = D(x+ + u)``, ``u+ = u + x+ - z+``.
+
+    Run as Douglas-Rachford on the governing sequence ``w = x+ + u`` (the
+    change of variables of Eckstein & Bertsekas 1992), which is what the
+    guarantee and the monitor are about; with ``z0 = x0`` and ``u0 = 0`` it
+    starts from ``w0 = prox_{gamma f}(x0)``. A relaxation ``lam`` gives the
+    over-relaxed ADMM ``x^ = lam x+ + (1 - lam) z`` in place of ``x+`` in the
+    ``z`` and ``u`` updates. The estimate is ``x``.
+    {common}
+    References
+    ----------
+    .. [1] D. Gabay, "Applications of the method of multipliers to variational
+       inequalities", in *Augmented Lagrangian Methods*, North-Holland, 1983.
+    .. [2] J. Eckstein and D. P. Bertsekas, Math. Program. 55 (1992) 293-318,
+       doi:10.1007/BF01581204.
+    .. [3] S. H. Chan, X. Wang and O. A. Elgendy, "Plug-and-play ADMM for image
+       restoration: fixed-point convergence and applications", IEEE Trans.
+       Comput. Imaging 3(1) (2017) 84-98, doi:10.1109/TCI.2016.2629286.
+    """
+    run = _Run("admm", fidelity, denoiser, locals_of(locals()))
+    return run.run(DouglasRachford, fidelity._prox)
+
+
+def locals_of(arguments: dict[str, Any]) -> dict[str, Any]:
+    """The solver's keyword arguments without the positional ones."""
+    return {k: v for k, v in arguments.items() if k not in ("fidelity", "denoiser")}
+
+
+for _solver, _step_doc in (
+    (forward_backward, "Gradient step length ``eta``."),
+    (douglas_rachford, "Prox parameter ``gamma`` of ``prox_{gamma f}``."),
+    (admm, "Prox parameter ``gamma`` (penalty ``1/gamma``)."),
+):
+    _solver.__doc__ = _solver.__doc__.replace("{common}", _COMMON_DOC.replace("{step_doc}", _step_doc))

@@ -1,0 +1,248 @@
+"""Fixed-point residual monitor: flags with evidence, and what to do about them.
+
+For a relaxed iteration ``v_{k+1} = T_lam v_k`` the monitor sees the steps
+``d_k = v_{k+1} - v_k = T_lam v_k - v_k``. Consecutive iterates are a pair
+for ``T_lam`` whose images are known for free: ``a = v_k - v_{k+1} = -d_k``
+and ``r = a - (T_lam v_k - T_lam v_{k+1}) = d_{k+1} - d_k``. Hence:
+
+- the averagedness statistic of the pair,
+  ``||d_{k+1} - d_k||^2 / (2 (||d_k||^2 - <d_k, d_{k+1}>))``, must not exceed
+  the constant the guarantee certifies for ``T_lam`` (THEORY.md section 5:
+  online evidence); for a contraction, ``||d_{k+1}|| <= rho ||d_k||``;
+- for any nonexpansive ``T_lam`` the residual ``||d_k||`` is non-increasing
+  (Bauschke & Combettes 2017, Prop. 5.16 and its proof).
+
+References
+----------
+.. [1] H. H. Bauschke and P. L. Combettes, *Convex Analysis and Monotone
+   Operator Theory in Hilbert Spaces*, 2nd ed., Springer, 2017, Sec. 5.2.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Literal
+
+import torch
+
+from ..check._pairs import ROUNDING_FACTOR
+
+FlagKind = Literal["assumption_broken", "residual_increase", "stall", "blow_up"]
+Action = Literal["warn", "stop", "back_off"]
+FLAG_KINDS = ("assumption_broken", "blow_up", "residual_increase", "stall")
+ACTIONS = ("back_off", "stop", "warn")
+
+
+@dataclass(frozen=True)
+class Policy:
+    """What the monitor does when it raises each flag, and its thresholds.
+
+    Parameters
+    ----------
+    assumption_broken, residual_increase, stall, blow_up : {"warn", "stop", "back_off"}
+        ``"warn"`` records and continues; ``"stop"`` returns the last good
+        iterate; ``"back_off"`` restarts from the last good iterate with half
+        the relaxation (recorded), at most ``max_back_offs`` times, then stops.
+    increase_rtol : float
+        Relative rise of the residual tolerated before ``residual_increase``.
+    stall_window : int
+        Iterations over which the residual must fall by ``stall_drop``.
+    stall_drop : float
+        Relative decrease expected over the window while above ``tol``.
+    blowup_ratio : float
+        ``blow_up`` when the iterate's norm exceeds this multiple of the
+        reference scale (the larger of the initial iterate's norm and the
+        data's norm), or any value is not finite.
+    max_back_offs : int
+        Limit on restarts.
+    """
+
+    assumption_broken: Action = "warn"
+    residual_increase: Action = "warn"
+    stall: Action = "warn"
+    blow_up: Action = "stop"
+    increase_rtol: float = 1e-6
+    stall_window: int = 50
+    stall_drop: float = 0.01
+    blowup_ratio: float = 1e4
+    max_back_offs: int = 5
+
+    def __post_init__(self) -> None:
+        for kind in FLAG_KINDS:
+            if getattr(self, kind) not in ACTIONS:
+                raise ValueError(
+                    f"`{kind}` action must be one of {sorted(ACTIONS)}, got {getattr(self, kind)!r}"
+                )
+        for name in ("increase_rtol", "stall_drop", "blowup_ratio"):
+            value = getattr(self, name)
+            if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
+                raise ValueError(f"`{name}` must be a positive number, got {value!r}")
+        for name in ("stall_window", "max_back_offs"):
+            value = getattr(self, name)
+            if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+                raise ValueError(f"`{name}` must be a positive integer, got {value!r}")
+
+
+@dataclass(frozen=True)
+class Flag:
+    """One problem the monitor saw.
+
+    Attributes
+    ----------
+    kind : str
+        ``"assumption_broken"``, ``"residual_increase"``, ``"stall"`` or ``"blow_up"``.
+    iteration : int
+        Iteration at which it was seen (0-based index of the iterate ``v_k``).
+    message : str
+        What happened, with numbers.
+    action : str
+        What the run did (``"warn"``, ``"stop"``, ``"back_off"``).
+    witness : tuple of torch.Tensor or None
+        For ``assumption_broken`` and ``residual_increase``: the pair of
+        consecutive iterates ``(v_(k-1), v_k)`` of the governing variable that
+        violates the certified inequality (or is expanded).
+    value : float
+        The offending statistic.
+    """
+
+    kind: str
+    iteration: int
+    message: str
+    action: str
+    witness: tuple[torch.Tensor, torch.Tensor] | None = field(default=None, repr=False)
+    value: float = math.nan
+
+
+def _norm(t: torch.Tensor) -> float:
+    return float(torch.linalg.vector_norm(t.double()))
+
+
+@dataclass
+class Monitor:
+    """Watches the steps ``d_k`` of one run and raises flags.
+
+    Parameters
+    ----------
+    policy : Policy
+    map_kind : str or None
+        What the guarantee certifies for ``T_lam``: ``"averaged"``,
+        ``"contraction"``, ``"nonexpansive"``, or None for an unguarded run
+        (only the residual, stall and blow-up checks apply).
+    constant : float
+        The certified averagedness constant or contraction factor.
+    scale : float
+        Reference norm for the blow-up bound.
+    """
+
+    policy: Policy
+    map_kind: str | None
+    constant: float
+    scale: float
+    residuals: list[float] = field(default_factory=list)
+    _previous_step: torch.Tensor | None = None
+    _previous_point: torch.Tensor | None = None
+
+    def certify(self, map_kind: str | None, constant: float) -> None:
+        """Change the certified constant (after a back-off changes the relaxation)."""
+        self.map_kind, self.constant = map_kind, constant
+        self._previous_step = None
+        self._previous_point = None
+
+    def blow_up(self, iteration: int, candidate: torch.Tensor) -> Flag | None:
+        """Flag non-finite or runaway values in a candidate iterate."""
+        if not bool(torch.isfinite(candidate).all()):
+            bad = int((~torch.isfinite(candidate)).sum())
+            return self._flag("blow_up", iteration, f"{bad} non-finite values in the next iterate", math.nan)
+        size = _norm(candidate)
+        bound = self.policy.blowup_ratio * self.scale
+        if size > bound:
+            return self._flag(
+                "blow_up", iteration, f"iterate norm {size:.3g} exceeds the bound {bound:.3g}", size
+            )
+        return None
+
+    def observe(self, iteration: int, point: torch.Tensor, step: torch.Tensor) -> list[Flag]:
+        """Record the step ``d_k = v_{k+1} - v_k`` taken from ``v_k = point``."""
+        residual = _norm(step)
+        flags = []
+        if self._previous_step is not None:
+            flags += self._compare(iteration, point, step, residual)
+        self.residuals.append(residual)
+        flags += self._stall(iteration)
+        self._previous_step, self._previous_point = step, point
+        return flags
+
+    def _allowance(self, point: torch.Tensor) -> float:
+        return ROUNDING_FACTOR * torch.finfo(point.dtype).eps * 2.0 * _norm(point)
+
+    def _compare(self, iteration, point, step, residual) -> list[Flag]:
+        previous, before = self._previous_step, self.residuals[-1]
+        allowance = self._allowance(point)
+        flags = []
+        witness = (self._previous_point, point)
+        if residual > before * (1.0 + self.policy.increase_rtol) + allowance:
+            # ||T v_k - T v_(k-1)|| = ||d_k|| > ||d_(k-1)|| = ||v_k - v_(k-1)||: the pair of
+            # consecutive iterates is expanded by the (relaxed) iteration map.
+            flags.append(
+                self._flag(
+                    "residual_increase",
+                    iteration,
+                    f"fixed-point residual rose from {before:.6g} to {residual:.6g}: the iteration "
+                    "map expands the last pair of iterates",
+                    residual / before if before > 0 else math.inf,
+                    witness,
+                )
+            )
+        if self.map_kind is None:
+            return flags
+        if self.map_kind == "averaged":
+            r = (step - previous).double()
+            inner = before**2 - float(torch.sum(previous.double() * step.double()))
+            r_norm = _norm(r)
+            if r_norm**2 > 1000.0 * allowance * before and r_norm > 0:
+                statistic = math.inf if inner <= 0 else r_norm**2 / (2.0 * inner)
+                if statistic > self.constant + 1e-6:
+                    flags.append(
+                        self._flag(
+                            "assumption_broken",
+                            iteration,
+                            f"consecutive iterates give averagedness {statistic:.6g} > certified "
+                            f"{self.constant:.6g}",
+                            statistic,
+                            witness,
+                        )
+                    )
+        else:
+            factor = self.constant if self.map_kind == "contraction" else 1.0
+            if residual > factor * before + allowance:
+                flags.append(
+                    self._flag(
+                        "assumption_broken",
+                        iteration,
+                        f"||d_(k+1)|| / ||d_k|| = {residual / before:.6g} > certified "
+                        f"{self.map_kind} factor {factor:.6g}",
+                        residual / before,
+                        witness,
+                    )
+                )
+        return flags
+
+    def _stall(self, iteration: int) -> list[Flag]:
+        window = self.policy.stall_window
+        if len(self.residuals) <= window or len(self.residuals) % window:
+            return []
+        old, new = self.residuals[-window - 1], self.residuals[-1]
+        if new > (1.0 - self.policy.stall_drop) * old:
+            return [
+                self._flag(
+                    "stall",
+                    iteration,
+                    f"residual fell only from {old:.6g} to {new:.6g} over {window} iterations",
+                    new / old if old > 0 else math.inf,
+                )
+            ]
+        return []
+
+    def _flag(self, kind, iteration, message, value, witness=None) -> Flag:
+        return Flag(kind, iteration, message, getattr(self.policy, kind), witness, value)

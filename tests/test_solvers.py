@@ -1,0 +1,245 @@
+"""Guarded PnP solvers and the residual monitor, against independent solutions."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+import torch
+from sklearn.linear_model import Lasso
+
+import pnpguard as pg
+from tests.helpers import assert_close, dense_matrix
+
+SHAPE = (8, 8)
+RNG = np.random.default_rng(3)
+
+
+def _soft(threshold):
+    def soft(z):
+        return torch.sign(z) * torch.clamp(z.abs() - threshold, min=0)
+
+    return pg.as_denoiser(soft, name=f"soft({threshold:g})", backend="torch")
+
+
+class _LinearFilter(pg.Denoiser):
+    """``D = I - c Laplacian`` (periodic), spectrum [1 - 8c, 1], carried as a verified fact."""
+
+    def __init__(self, c: float):
+        super().__init__(
+            name="smoothing filter",
+            facts=[pg.Fact.linear_symmetric((1 - 8 * c, 1.0), "periodic Laplacian spectrum", verified=True)],
+        )
+        self.c = c
+
+    def _denoise(self, t):
+        laplacian = 4 * t - sum(torch.roll(t, s, d) for s in (1, -1) for d in (-1, -2))
+        return t - self.c * laplacian
+
+
+def _blur_problem(noise=0.05, shape=SHAPE):
+    op = pg.Convolution(pg.gaussian_psf(3, 0.5), shape)
+    truth = RNG.random(shape)
+    y = op(truth) + noise * RNG.standard_normal(shape)
+    return op, truth, y
+
+
+def test_forward_backward_with_soft_thresholding_solves_the_lasso():
+    op, _, y = _blur_problem()
+    sigma, threshold = 0.5, 0.02
+    fidelity = pg.LeastSquares(op, y, sigma=sigma)
+    result = pg.forward_backward(fidelity, _soft(threshold), max_iter=5000, tol=1e-11)
+    assert result.converged and result.guarantee is not None
+    step = result.step
+    # FB with D = soft(t) and step eta minimises ||Ax - y||^2/(2 s^2) + (t/eta)||x||_1.
+    # Reference: scikit-learn's Lasso, objective ||y - Xw||^2/(2 m) + alpha ||w||_1,
+    # hence alpha = t s^2 / (eta m).
+    m = y.size
+    lasso = Lasso(alpha=threshold * sigma**2 / (step * m), fit_intercept=False, tol=1e-14, max_iter=200000)
+    lasso.fit(dense_matrix(op), y.ravel())
+    assert_close(result.x, lasso.coef_.reshape(SHAPE), rtol=0, atol=1e-6, what="PnP-FB vs Lasso")
+    # Averaged iteration map: the fixed-point residual never increases (THEORY.md section 5).
+    residuals = result.residuals
+    assert np.all(np.diff(residuals) <= 1e-12 * residuals[0])
+    assert not result.flags
+
+
+def test_linear_denoiser_fixed_point_matches_a_linear_solve():
+    op, _, y = _blur_problem()
+    denoiser = _LinearFilter(0.1)
+    fidelity = pg.LeastSquares(op, y, sigma=0.3)
+    result = pg.forward_backward(fidelity, denoiser, max_iter=20000, tol=1e-12)
+    assert result.converged and result.guarantee.status == "proved"
+    # Fixed point x = G (x - eta A^T (A x - y) / s^2): (I - G + eta G A^T A / s^2) x = eta G A^T y / s^2.
+    a = dense_matrix(op)
+    basis = torch.eye(64, dtype=torch.float64).reshape(64, 1, *SHAPE)
+    g = denoiser.apply(basis).reshape(64, 64).T.numpy()
+    eta = result.step / 0.3**2
+    x = np.linalg.solve(np.eye(64) - g + eta * g @ a.T @ a, eta * g @ a.T @ y.ravel())
+    assert_close(result.x, x.reshape(SHAPE), rtol=0, atol=1e-8)
+
+
+def test_fb_dr_and_admm_reach_the_same_minimiser():
+    op, _, y = _blur_problem()
+    fidelity = pg.LeastSquares(op, y, sigma=0.2)
+    denoiser = _soft(0.01)
+    # The same prox parameter makes the three fixed points minimise the same convex
+    # problem f + (0.01 / eta) ||x||_1, which is strictly convex here (mu > 0).
+    assert fidelity.strong_convexity > 0
+    eta = 1.0 / fidelity.lipschitz
+    results = [
+        solver(fidelity, denoiser, step=eta, max_iter=3000, tol=1e-12)
+        for solver in (pg.forward_backward, pg.douglas_rachford, pg.admm)
+    ]
+    for result in results:
+        assert result.converged
+    assert_close(results[1].x, results[0].x, rtol=0, atol=1e-8, what="DR vs FB")
+    assert_close(results[2].x, results[0].x, rtol=0, atol=1e-8, what="ADMM vs FB")
+
+
+def test_admm_iterates_are_douglas_rachford_iterates_under_the_change_of_variables():
+    op, _, y = _blur_problem()
+    fidelity = pg.LeastSquares(op, y, sigma=0.2)
+    denoiser = _soft(0.01)
+    gamma = 1.0 / fidelity.lipschitz
+    recorded = []
+    pg.admm(
+        fidelity, denoiser, step=gamma, max_iter=15, tol=0,
+        callback=lambda state: recorded.append(state.governing.clone()),
+    )
+    # Classical PnP-ADMM written out (Chan, Wang & Elgendy 2017, eq. (7)-(9)), from z0 = x0, u0 = 0.
+    x0 = torch.from_numpy(op.adjoint(y))
+    z, u = x0.clone(), torch.zeros_like(x0)
+    w_sequence = []
+    for _ in range(16):
+        x = fidelity._prox(z - u, gamma)
+        w_sequence.append(x + u)
+        z = denoiser.apply(x + u)
+        u = u + x - z
+    # The library's k-th governing iterate is w_k = x_(k+1) + u_k.
+    for k, governing in enumerate(recorded):
+        assert torch.allclose(governing, w_sequence[k + 1], atol=1e-12), k
+
+
+def test_residual_sum_stays_below_the_averagedness_bound():
+    op, _, y = _blur_problem()
+    fidelity = pg.LeastSquares(op, y, sigma=0.3)
+    denoiser = _LinearFilter(0.1)
+    reference = pg.forward_backward(fidelity, denoiser, max_iter=20000, tol=1e-13)
+    x_star = reference.x
+    x0 = np.zeros(SHAPE)
+    result = pg.forward_backward(fidelity, denoiser, x0=x0, max_iter=500, tol=0)
+    alpha = result.guarantee.constant
+    assert result.guarantee.status == "proved" and alpha < 1
+    # THEORY.md section 5: sum_k ||x_k - T x_k||^2 <= alpha / (1 - alpha) ||x0 - x*||^2.
+    bound = alpha / (1 - alpha) * np.sum((x0 - x_star) ** 2)
+    assert np.sum(result.residuals**2) <= bound
+    assert np.sum(result.residuals**2) >= 0.05 * bound  # the bound is not vacuous here
+
+
+def test_expansive_denoiser_refused_when_guarded_and_stopped_when_not():
+    op = pg.PixelMask(pg.random_pixel_mask(SHAPE, 0.5, seed=2))
+    fidelity = pg.LeastSquares(op, RNG.random(SHAPE), sigma=0.1)
+    expansive = pg.as_denoiser(lambda z: 1.5 * z, name="gain 1.5", backend="torch")
+    with pytest.raises(pg.Refused) as caught:
+        pg.forward_backward(fidelity, expansive)
+    assert "expansive" in caught.value.reasons[0]
+    result = pg.forward_backward(fidelity, expansive, guard=False, x0=RNG.random(SHAPE), max_iter=5000)
+    assert result.guarantee is None and "NO GUARANTEE" in str(result)
+    kinds = {flag.kind for flag in result.flags}
+    assert "blow_up" in kinds and "residual_increase" in kinds
+    assert np.isfinite(result.x).all()
+    witness = next(flag for flag in result.flags if flag.kind == "residual_increase").witness
+    first, second = witness
+    # The witness pair is expanded by T = D (I - eta grad f): reproduce it.
+    t = lambda v: expansive.apply(v - result.step * fidelity._grad(v))  # noqa: E731
+    assert float(torch.linalg.vector_norm(t(first) - t(second))) > float(torch.linalg.vector_norm(first - second))
+
+
+def test_back_off_halves_the_relaxation_until_the_run_settles():
+    op, _, y = _blur_problem()
+    fidelity = pg.LeastSquares(op, y, sigma=0.2)
+    # Step 3/L makes T = D (I - eta grad f) expansive (eigenvalue near 1 - 3 = -2); a
+    # relaxation below 2/3 restores a nonexpansive relaxed map on those directions.
+    policy = pg.Policy(residual_increase="back_off")
+    result = pg.forward_backward(
+        fidelity, _LinearFilter(0.0), guard=False, step=3.0 / fidelity.lipschitz,
+        max_iter=3000, tol=1e-9, policy=policy,
+    )
+    assert result.back_offs >= 1 and result.relaxation <= 0.5
+    assert result.converged
+
+
+def test_callback_stop_equals_max_iter():
+    op, _, y = _blur_problem()
+    fidelity = pg.LeastSquares(op, y, sigma=0.2)
+    denoiser = _soft(0.01)
+    report = pg.check_denoiser(denoiser, y)
+    stopped = pg.forward_backward(
+        fidelity, denoiser, report=report, tol=0, callback=lambda state: state.iteration == 7
+    )
+    capped = pg.forward_backward(fidelity, denoiser, report=report, tol=0, max_iter=7)
+    assert stopped.iterations == capped.iterations == 7
+    assert np.array_equal(stopped.x, capped.x)
+
+
+def test_reference_metrics_and_kinds():
+    op, truth, y = _blur_problem(noise=0.01, shape=(16, 16))
+    fidelity = pg.LeastSquares(op, torch.from_numpy(y).float(), sigma=0.05)
+    result = pg.douglas_rachford(fidelity, _soft(0.001), reference=truth, max_iter=30)
+    assert isinstance(result.x, torch.Tensor) and result.x.dtype == torch.float32
+    assert result.metrics["psnr"].shape == (result.iterations,)
+    assert result.metrics["psnr"][-1] > 20 and 0 < result.metrics["ssim"][-1] <= 1
+    assert "guarantee" in str(result)
+
+
+def test_user_parameters_outside_the_admissible_set_are_refused():
+    op, _, y = _blur_problem()
+    fidelity = pg.LeastSquares(op, y, sigma=0.2)
+    with pytest.raises(pg.Refused, match="outside the admissible interval"):
+        pg.forward_backward(fidelity, _LinearFilter(0.1), step=2.5 / fidelity.lipschitz)
+    with pytest.raises(pg.Refused, match="relaxation"):
+        pg.douglas_rachford(fidelity, _LinearFilter(0.05), relaxation=2.5)
+
+
+@pytest.mark.parametrize(
+    "kwargs, error, message",
+    [
+        ({"x0": np.zeros((4, 4))}, ValueError, r"`x0` has shape \(4, 4\)"),
+        ({"step": -1.0}, ValueError, "`step` must be a positive"),
+        ({"max_iter": 0}, ValueError, "`max_iter`"),
+        ({"reference": np.full(SHAPE, np.nan)}, ValueError, "`reference` has .* non-finite"),
+        ({"policy": "loose"}, TypeError, "`policy`"),
+    ],
+)
+def test_bad_arguments_fail_before_iterating(kwargs, error, message):
+    op, _, y = _blur_problem()
+    fidelity = pg.LeastSquares(op, y)
+    with pytest.raises(error, match=message):
+        pg.forward_backward(fidelity, _LinearFilter(0.1), **kwargs)
+
+
+def test_denoiser_with_the_wrong_output_shape_fails_clearly():
+    op, _, y = _blur_problem()
+    fidelity = pg.LeastSquares(op, y)
+    broken = pg.as_denoiser(lambda z: z[..., :4, :], name="cropper", backend="torch")
+    for guard in (True, False):
+        with pytest.raises(pg.DenoiserError, match="cropper"):
+            pg.forward_backward(fidelity, broken, guard=guard)
+
+
+def test_policy_validation():
+    with pytest.raises(ValueError, match=r"\['back_off', 'stop', 'warn'\]"):
+        pg.Policy(stall="ignore")
+
+
+def test_plot_run_draws_residual_and_metrics():
+    import matplotlib
+
+    matplotlib.use("Agg")
+    op, truth, y = _blur_problem(shape=(16, 16))
+    result = pg.forward_backward(pg.LeastSquares(op, y), _LinearFilter(0.1), reference=truth, max_iter=5)
+    figure = pg.plot_run(result)
+    assert len(figure.axes) == 3
+    assert figure.axes[0].get_yscale() == "log"
