@@ -2,7 +2,11 @@
 
 from ._base import Denoiser, DenoiserError
 from ._facts import FACT_KINDS, Fact
+from ._gaussian import GaussianSmoothing
+from ._nlm import NonLocalMeans
 from ._relaxed import relaxed
+from ._tv import TotalVariation
+from ._wavelet import WaveletShrinkage
 from ._wrap import as_denoiser
 
 __all__ = [
@@ -10,6 +14,10 @@ __all__ = [
     "Denoiser",
     "DenoiserError",
     "Fact",
+    "GaussianSmoothing",
+    "NonLocalMeans",
+    "TotalVariation",
+    "WaveletShrinkage",
     "as_denoiser",
     "relaxed",
 ]
