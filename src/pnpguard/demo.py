@@ -1,0 +1,129 @@
+"""The main job, end to end: deblur a microscope frame of cells with a guarantee.
+
+Run with ``python -m pnpguard.demo`` (or ``make demo``). The scene: the lab's
+widefield microscope blurs a frame of fluorescent cells (Gaussian point-spread
+function, 1.6 px) and adds 1 % noise. The demo
+
+1. checks a total-variation denoiser, whose firm nonexpansiveness is proved
+   from its structure, turns the proof into an admissible step through a
+   published theorem, and runs guarded forward-backward and ADMM;
+2. checks non-local means, a strong black box, finds a concrete pair it
+   expands, and shows the refusal with its reasons and ways out.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import phantoms
+from .check import CheckReport, check_denoiser
+from .denoisers import NonLocalMeans, TotalVariation
+from .fidelity import LeastSquares
+from .guarantee import Refused
+from .metrics import psnr
+from .operators import Convolution, gaussian_psf
+from .solvers import Reconstruction, admm, forward_backward
+
+CAUTION = (
+    "Caution: a convergence guarantee is not a correctness guarantee. Learned or "
+    "black-box priors can hallucinate structure; where a reconstruction could inform "
+    "decisions about people (e.g. medical scans), clinical use follows local "
+    "regulations and licensed practice."
+)
+
+
+@dataclass(frozen=True)
+class DemoOutcome:
+    """What the demo measured (returned for tests and notebooks)."""
+
+    data_psnr: float
+    runs: dict[str, Reconstruction]
+    refusal: Refused
+    black_box_report: CheckReport
+    seconds: float
+
+
+def _section(title: str) -> None:
+    print(f"\n== {title} " + "=" * max(0, 70 - len(title)))
+
+
+def run_demo(*, size: int = 128, seed: int = 3, verbose: bool = True) -> DemoOutcome:
+    """Run the demo and return its numbers.
+
+    Parameters
+    ----------
+    size : int
+        Side of the synthetic frame in pixels.
+    seed : int
+        Seed of the frame and of the noise.
+    verbose : bool
+        Print the reports as the demo goes.
+    """
+    say = print if verbose else (lambda *args, **kwargs: None)
+    start = time.perf_counter()
+    truth = phantoms.cells(size, seed=seed)
+    blur = Convolution(gaussian_psf(9, 1.6), truth.shape)
+    noise = 0.01
+    data = blur(truth) + noise * np.random.default_rng(seed).standard_normal(truth.shape)
+    fidelity = LeastSquares(blur, data, sigma=noise)
+    data_psnr = psnr(data, truth, data_range=1.0)
+    if verbose:
+        _section("scene")
+    say(f"synthetic {size}x{size} frame of fluorescent cells, blurred by {blur!r}")
+    say(f"noise 1 % of full scale; data PSNR {data_psnr:.2f} dB")
+    say(f"data term: L = {fidelity.lipschitz:.4g} (certified), mu = {fidelity.strong_convexity:.3g}")
+
+    # The iteration feeds the denoiser x - step grad f(x), much less noisy than the data,
+    # hence a strength well below the data's noise level (tuned on another seed).
+    tv = TotalVariation(sigma=0.001)
+    if verbose:
+        _section("1. a denoiser with proved structure: total variation")
+    report = check_denoiser(tv, fidelity.op.adjoint(data))
+    say(report)
+    runs = {}
+    for solver in (forward_backward, admm):
+        result = solver(fidelity, tv, report=report, reference=truth, data_range=1.0, max_iter=300)
+        runs[f"{solver.__name__} + tv"] = result
+        if verbose:
+            _section(f"{solver.__name__} with total variation")
+        say(result.guarantee)
+        say(result)
+
+    if verbose:
+        _section("2. a black-box denoiser: non-local means")
+    nlm = NonLocalMeans(sigma=0.01)
+    black_box = check_denoiser(nlm, fidelity.op.adjoint(data), budget=100)
+    say(black_box)
+    try:
+        forward_backward(fidelity, nlm, report=black_box)
+    except Refused as refusal:
+        caught = refusal
+        say(refusal)
+    else:  # pragma: no cover - the check finds an expansion on this scene
+        raise AssertionError("non-local means was expected to be refused")
+
+    seconds = time.perf_counter() - start
+    if verbose:
+        _section("summary")
+        for name, result in runs.items():
+            say(
+                f"{name:<28} PSNR {result.metrics['psnr'][-1]:6.2f} dB  "
+                f"({result.iterations} iterations, guarantee {result.guarantee.status})"
+            )
+        say(f"{'non-local means':<28} refused: {caught.reasons[0]}")
+        say(f"demo time {seconds:.1f} s")
+        say("\n" + CAUTION)
+    return DemoOutcome(data_psnr, runs, caught, black_box, seconds)
+
+
+def main() -> int:
+    """Entry point of ``python -m pnpguard.demo``."""
+    run_demo()
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
