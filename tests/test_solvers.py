@@ -243,3 +243,26 @@ def test_plot_run_draws_residual_and_metrics():
     figure = pg.plot_run(result)
     assert len(figure.axes) == 3
     assert figure.axes[0].get_yscale() == "log"
+
+
+def test_case_one_converges_and_just_outside_case_four_is_refused():
+    op, _, y = _blur_problem()
+    fidelity = pg.LeastSquares(op, y, sigma=0.2)
+    assert fidelity.strong_convexity > 0
+    # Case 1: forward-backward with a proved theta-averaged denoiser and the recommended step.
+    case_one = pg.forward_backward(fidelity, _LinearFilter(0.1), max_iter=5000, tol=1e-10)
+    assert case_one.converged and case_one.guarantee.route == "averaged"
+    # Case 4: c = 0.15 gives the spectrum [-0.2, 1], theta = 0.6 > 1/2, so Douglas-Rachford
+    # needs the strongly convex window of Giselsson & Boyd (2017).
+    denoiser = _LinearFilter(0.15)
+    report = pg.check_denoiser(denoiser, y)
+    assert report.theta == pytest.approx(0.6)
+    guarantee = pg.admissible("douglas_rachford", fidelity, report)
+    low, high = guarantee.step_interval
+    assert guarantee.route == "strongly convex" and low > 0
+    inside = pg.douglas_rachford(fidelity, denoiser, report=report, step=0.5 * (low + high), max_iter=5000, tol=1e-10)
+    assert inside.converged and not inside.flags
+    with pytest.raises(pg.Refused, match="outside the admissible interval"):
+        pg.douglas_rachford(fidelity, denoiser, report=report, step=high * 1.01)
+    with pytest.raises(pg.Refused, match="outside the admissible interval"):
+        pg.douglas_rachford(fidelity, denoiser, report=report, step=low * 0.99)
