@@ -283,7 +283,7 @@ def test_tv_batches_like_single_images_and_warns_when_capped():
         warnings.simplefilter("always")
         capped(x)
     assert any("max_iter=5" in str(w.message) for w in caught)
-    assert den.facts[0].tolerance == 1e-4 and den.weight == pytest.approx(0.1)
+    assert den.facts[0].tolerance == 1e-4 and den.facts[0].verified
     with pytest.raises(ValueError, match="`sigma`.*`weight`"):
         TotalVariation()
 

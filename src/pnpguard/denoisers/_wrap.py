@@ -12,7 +12,6 @@ from ._base import Denoiser, DenoiserError
 from ._facts import ClaimLike, as_claim
 
 _BACKENDS = ("numpy", "torch")
-_FLOAT_DTYPES = (torch.float32, torch.float64)
 
 
 def as_denoiser(
