@@ -183,7 +183,7 @@ def test_douglas_rachford_refuses_on_a_null_space_with_computed_suggestions():
     text = "\n".join(refusal.suggestions)
     assert "switch to forward_backward" in text
     # theta 0.8 * 1.05 = 0.84; relaxation s = floor(1000 * 0.5 / 0.84) / 1000 = 0.595.
-    assert "relaxed(denoiser, 0.595)" in text
+    assert "relaxed(denoiser, 0.595)" in text and refusal.relaxation == 0.595
 
 
 def test_expansive_denoiser_is_refused_and_relaxation_is_not_offered():

@@ -377,7 +377,8 @@ def _not_averaged_reason(c: _Constants) -> str:
 
 
 # ----------------------------------------------------------------- suggestions
-def _suggestions(algorithm: str, c: _Constants) -> list[str]:
+def _suggestions(algorithm: str, c: _Constants) -> tuple[list[str], float | None]:
+    """Ways out of a refusal, and the relaxation factor when one repairs the case."""
     suggestions = []
     if algorithm != "forward_backward":
         fb, _ = _forward_backward_routes(c)
@@ -386,17 +387,17 @@ def _suggestions(algorithm: str, c: _Constants) -> list[str]:
                 f"switch to forward_backward: {fb[0].route} route with step {fb[0].step:.6g} "
                 f"(admissible ({fb[0].step_interval[0]:.3g}, {fb[0].step_interval[1]:.6g}))"
             )
-    target = None
     if algorithm == "forward_backward":
         target = 0.99
     elif c.mu > 0:
         target = max(0.5, 0.99 * _theta_limit(c.mu, c.lipschitz))
     else:
         target = 0.5
-    finite_theta = math.isfinite(c.report.theta) and c.report.theta > 0
-    if finite_theta and c.theta > target:
+    relaxation = None
+    if math.isfinite(c.report.theta) and c.theta > target:
         s = math.floor(1000.0 * target / c.theta) / 1000.0
         if s > 0:
+            relaxation = s
             suggestions.append(
                 f"relax the denoiser: pnpguard.relaxed(denoiser, {s:g}) = (1 - s) I + s D has "
                 f"theta = {s:g} x {c.theta:.4g} = {s * c.theta:.4g}, admissible for {algorithm}"
@@ -408,7 +409,7 @@ def _suggestions(algorithm: str, c: _Constants) -> list[str]:
             "(e.g. wavelet soft thresholding or an averaged-by-construction network)"
         )
     suggestions.append("lower the denoiser strength (sigma) and check again")
-    return suggestions
+    return suggestions, relaxation
 
 
 def admissible(
@@ -491,6 +492,7 @@ def admissible(
     else:
         routes, reasons = _douglas_rachford_routes(algorithm, c)
     if not routes:
-        raise Refused(reasons, _suggestions(algorithm, c))
+        suggestions, relaxation = _suggestions(algorithm, c)
+        raise Refused(reasons, suggestions, relaxation=relaxation)
     best, *others = routes
     return Guarantee(**{**best.__dict__, "alternatives": tuple(others)})

@@ -16,11 +16,21 @@ class Refused(Exception):
         Concrete, computed ways out (another algorithm with its admissible
         step, a relaxed denoiser with the factor that makes the case
         admissible, a lower denoiser strength).
+    relaxation : float or None
+        The factor ``s`` of the suggested relaxed denoiser ``(1 - s) I + s D``
+        (:func:`pnpguard.relaxed`), when relaxation can repair the case.
     """
 
-    def __init__(self, reasons: Sequence[str], suggestions: Sequence[str] = ()):
+    def __init__(
+        self,
+        reasons: Sequence[str],
+        suggestions: Sequence[str] = (),
+        *,
+        relaxation: float | None = None,
+    ):
         self.reasons = tuple(reasons)
         self.suggestions = tuple(suggestions)
+        self.relaxation = relaxation
         super().__init__(self._text())
 
     def _text(self) -> str:
