@@ -229,6 +229,13 @@ def test_denoiser_with_the_wrong_output_shape_fails_clearly():
             pg.forward_backward(fidelity, broken, guard=guard)
 
 
+def test_a_report_for_another_denoiser_is_rejected():
+    op, _, y = _blur_problem()
+    report = pg.check_denoiser(_soft(0.5), y)
+    with pytest.raises(ValueError, match="`report` checks denoiser 'soft\\(0.5\\)'"):
+        pg.forward_backward(pg.LeastSquares(op, y), _soft(0.01), report=report)
+
+
 def test_policy_validation():
     with pytest.raises(ValueError, match=r"\['back_off', 'stop', 'warn'\]"):
         pg.Policy(stall="ignore")

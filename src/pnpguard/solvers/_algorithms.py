@@ -83,6 +83,11 @@ class _Run:
         report = o["report"]
         if report is not None and not isinstance(report, CheckReport):
             raise TypeError(f"`report` must be a CheckReport, got {type(report).__name__}")
+        if report is not None and report.denoiser != self.denoiser.name:
+            raise ValueError(
+                f"`report` checks denoiser {report.denoiser!r} but the run uses "
+                f"{self.denoiser.name!r}; check this denoiser (or give both the same name)"
+            )
         if not o["guard"]:
             if self.step is None:
                 self.step = 1.0 / self.fidelity.lipschitz
