@@ -14,6 +14,8 @@ from ._facts import Fact
 
 #: Samples of [0, pi] used to bound the kernel's frequency response from below.
 _RESPONSE_SAMPLES = 16385
+#: Subtracted from computed eigenvalue minima to cover floating-point rounding.
+_ROUNDING_ALLOWANCE = 1e-14
 
 
 def gaussian_taps(width: float, truncate: float) -> np.ndarray:
@@ -91,12 +93,14 @@ class GaussianSmoothing(Denoiser):
     library records ``Fact("linear_symmetric", spectrum=(min h, max h))``,
     hence ``lipschitz = max |h|`` and ``theta = (1 - min h) / 2``.
 
-    - With ``shape`` given: the exact minimum and maximum over that grid.
-    - Without ``shape``: ``max h = H(0) = 1`` for every size (unit sum, and
-      ``|H| <= sum |t_k| = 1``); the minimum is bounded below by ``m^2`` when
-      the bound ``m`` of :func:`response_lower_bound` on ``min_w H(w)`` is
-      >= 0, otherwise by ``m``, which holds for every image size because the
-      DFT samples ``H``.
+    - With ``shape`` given: ``min h`` over that grid.
+    - Without ``shape``: ``min h`` is bounded below by ``m^2`` when the bound
+      ``m`` of :func:`response_lower_bound` on ``min_w H(w)`` is >= 0,
+      otherwise by ``m``, which holds for every image size because the DFT
+      samples ``H``.
+
+    In both cases ``max h = H(0) = 1`` (unit sum, and ``|H| <= sum |t_k| = 1``),
+    and the lower end is lowered by 1e-14 to cover floating-point rounding.
 
     References
     ----------
@@ -139,13 +143,14 @@ class GaussianSmoothing(Denoiser):
         if self.shape is not None:
             rows = periodic_response(self._taps, self.shape[0])
             cols = periodic_response(self._taps, self.shape[1])
-            products = np.outer(rows, cols)
-            spectrum = (float(products.min()), float(products.max()))
+            low = float(np.outer(rows, cols).min())
             how = f"exact for {self.shape[0]}x{self.shape[1]} images"
         else:
             bound = response_lower_bound(self._taps)
-            spectrum = (bound**2 if bound >= 0 else bound, 1.0)
+            low = bound**2 if bound >= 0 else bound
             how = "an enclosure valid for every image size"
+        # max h = H(0) = sum of the taps = 1 exactly; the minimum less a rounding allowance
+        spectrum = (low - _ROUNDING_ALLOWANCE, 1.0)
         return Fact.linear_symmetric(
             spectrum,
             "periodic convolution with a symmetric Gaussian kernel is diagonalised by the 2-D "
