@@ -52,11 +52,19 @@ def rof_objective(x: torch.Tensor, f: torch.Tensor, weight: float) -> torch.Tens
     return 0.5 * residual.sum(dim=(-2, -1)) + weight * total_variation(x)
 
 
-def _tv_gap_terms(x: torch.Tensor, y_rows: torch.Tensor, y_cols: torch.Tensor, weight: float) -> torch.Tensor:
-    """``sum_ij weight |(grad x)_ij| - <(grad x)_ij, y_ij>`` per image, float64 (>= 0 when ``|y_ij| <= weight``)."""
-    g_rows, g_cols = forward_gradient(x.double())
-    terms = weight * torch.sqrt(g_rows**2 + g_cols**2) - g_rows * y_rows.double() - g_cols * y_cols.double()
-    return terms.sum(dim=(-2, -1))
+def _gap(
+    x: torch.Tensor, f: torch.Tensor, y_rows: torch.Tensor, y_cols: torch.Tensor, weight: float
+) -> torch.Tensor:
+    """Duality gap ``P(x) - D(y)`` of each image, in float64, for ``|y_ij| <= weight``.
+
+    Evaluated as ``||x - x_y||^2 / 2 + sum_ij (weight |(grad x)_ij| - <(grad x)_ij, y_ij>)``
+    with ``x_y = f - grad^T y``: a sum of nonnegative terms, free of cancellation.
+    """
+    y_rows, y_cols, x = y_rows.double(), y_cols.double(), x.double()
+    x_y = f.double() - gradient_adjoint(y_rows, y_cols)
+    g_rows, g_cols = forward_gradient(x)
+    terms = weight * torch.sqrt(g_rows**2 + g_cols**2) - g_rows * y_rows - g_cols * y_cols
+    return 0.5 * ((x - x_y) ** 2).sum(dim=(-2, -1)) + terms.sum(dim=(-2, -1))
 
 
 @dataclass(frozen=True)
@@ -145,9 +153,8 @@ def solve_rof(
         x = x_new
         if iteration % _GAP_EVERY == 0 or iteration == max_iter:
             x_dual = f - gradient_adjoint(y_rows, y_cols)
-            distance = 0.5 * ((x.double() - x_dual.double()) ** 2).sum(dim=(-2, -1))
-            gap_primal = distance + _tv_gap_terms(x, y_rows, y_cols, weight)
-            gap_dual = _tv_gap_terms(x_dual, y_rows, y_cols, weight)
+            gap_primal = _gap(x, f, y_rows, y_cols, weight)
+            gap_dual = _gap(x_dual, f, y_rows, y_cols, weight)
             use_dual = gap_dual < gap_primal
             best = torch.where(use_dual[..., None, None], x_dual, x)
             gap = torch.minimum(gap_primal, gap_dual)
