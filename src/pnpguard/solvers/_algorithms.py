@@ -12,7 +12,7 @@ import torch
 
 from .._arrays import ArrayLike, from_tensor, to_tensor
 from ..check import DEFAULT_BUDGET, CheckReport, check_denoiser
-from ..denoisers import Denoiser, as_denoiser
+from ..denoisers import as_denoiser
 from ..fidelity import LeastSquares
 from ..guarantee import DEFAULT_MARGIN, Guarantee, admissible
 from ..metrics import psnr, ssim
@@ -73,7 +73,8 @@ class _Run:
         if o["reference"] is not None:
             self.reference = _image(o["reference"], "reference", fidelity)
             span = float(self.reference.max() - self.reference.min())
-            self.data_range = o["data_range"] or (span if span > 0 else 1.0)
+            given = o["data_range"]
+            self.data_range = (span if span > 0 else 1.0) if given is None else _positive(given, "data_range")
         self.step = None if o["step"] is None else _positive(o["step"], "step")
         self.relaxation = None if o["relaxation"] is None else _positive(o["relaxation"], "relaxation")
 
