@@ -149,9 +149,10 @@ def check_denoiser(
         if (best := search.best[name]).x is not None
     }
     values = {name: max(search.best[name].value, 0.0) for name in QUANTITIES}
-    method = (
-        f"pair search: {len(SCALES)} scales x random directions, power chains on I - D and D, "
-        + ("autograd ascent" if denoiser.differentiable else "derivative-free (1+1)-ES ascent")
+    method = f"pair search: {len(SCALES)} scales x random directions, power chains on I - D and D, " + (
+        "Jacobian power iterations (torch.func jvp/vjp), autograd ascent"
+        if denoiser.differentiable
+        else "derivative-free (1+1)-ES ascent"
     )
     notes = list(_claim_notes(claims, values))
     if structure is not None:
@@ -196,6 +197,8 @@ def _run_search(denoiser: Denoiser, samples: list[torch.Tensor], budget: int, se
         # Chains at the tiniest scale (Jacobian regime) and at the two most revealing others.
         ranked = sorted(explored, key=lambda key: explored[key], reverse=True)
         starts = [(0, SCALES[0])] + [key for key in ranked if key[1] != SCALES[0]][:2]
+        if denoiser.differentiable:
+            search.jacobian_chain(0, steps=max(2, int(0.15 * search.remaining()) // 4))
         chain_calls = int(0.55 * search.remaining())
         search.power_chains(starts, steps=max(1, chain_calls // (2 * len(starts))))
         search.ascend(search.remaining())

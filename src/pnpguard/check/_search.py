@@ -6,13 +6,15 @@ within a budget of denoiser calls:
 1. *Exploration*: random perturbations ``y = x + a`` of every sample ``x`` at
    several scales, from tiny (where the Jacobian dominates) to twice the
    denoiser's noise level.
-2. *Power chains*: at the most revealing scales, iterate the perturbation
+2. *Jacobian chains* (differentiable denoisers): power iterations with exact
+   Jacobian-vector and vector-Jacobian products (``torch.func``) at a sample.
+3. *Power chains*: at the most revealing scales, iterate the perturbation
    direction along the residual difference ``r`` (a nonlinear power
    iteration on ``I - D``: for a symmetric Jacobian with eigenvalues ``h`` it
    converges to the eigenvector of the smallest ``h``, which maximises the
    averagedness statistic ``(1 - h) / 2``) and along the output difference
    ``Dx - Dy`` (power iteration on ``D``, which maximises the Lipschitz ratio).
-3. *Ascent*: from the best pair, maximise the averagedness statistic over
+4. *Ascent*: from the best pair, maximise the averagedness statistic over
    perturbations of fixed size, by gradient ascent through torch autograd when
    the denoiser is differentiable, otherwise by a (1+1) evolution strategy
    with step-size adaptation (derivative-free).
@@ -245,6 +247,47 @@ class PairSearch:
                 x = self.samples[chain.index]
                 radius = self._radius(chain.index, chain.scale)
                 self.evaluate_pairs(chain.index, x - radius * candidate.to(x.dtype))
+
+    def jacobian_chain(self, index: int, steps: int) -> None:
+        """Local power iterations with exact Jacobian products at sample ``index``.
+
+        For a differentiable denoiser, ``(I - J) v`` comes from a Jacobian-vector
+        product (:func:`torch.func.jvp`) and ``J^T J u`` from a JVP followed by a
+        vector-Jacobian product (:func:`torch.func.vjp`): power iterations for
+        the direction maximising the local averagedness statistic
+        ``||(I - J) v||^2 / (2 <v, (I - J) v>)`` (sharpened by a Rayleigh-Ritz
+        step) and for the spectral norm of ``J``. Each direction found is then
+        evaluated as an actual pair at the smallest perturbation scale, so the
+        reported values are measured, not modelled. A JVP counts as two calls,
+        a JVP plus VJP as three.
+        """
+        x = self.samples[index]
+        function = self.denoiser.apply_traced
+        shape = torch.Size((1, *x.shape[1:]))
+        radius = self._radius(index, SCALES[0])
+        direction = self._unit(shape, x)
+        inputs, responses = [], []
+        for _ in range(steps):
+            if self.remaining() < 3:
+                raise BudgetExhausted
+            self.calls += 2
+            _, pushed = torch.func.jvp(function, (x,), (direction,))
+            residual = direction - pushed.detach()
+            inputs.append(direction)
+            responses.append(residual)
+            direction = self._normalise(residual)
+        candidate = ritz_direction(inputs, responses, True)
+        self.evaluate_pairs(index, x + radius * (direction if candidate is None else candidate.to(x.dtype)))
+        vector = self._unit(shape, x)
+        _, pullback = torch.func.vjp(function, x)
+        for _ in range(steps // 2):
+            if self.remaining() < 4:
+                raise BudgetExhausted
+            self.calls += 3
+            _, pushed = torch.func.jvp(function, (x,), (vector,))
+            (normal,) = pullback(pushed.detach())
+            vector = self._normalise(normal.detach())
+        self.evaluate_pairs(index, x + radius * vector)
 
     def ascend(self, steps: int) -> None:
         """Maximise the averagedness statistic from the best pair found so far."""
