@@ -272,3 +272,15 @@ def test_case_one_converges_and_just_outside_case_four_is_refused():
         pg.douglas_rachford(fidelity, denoiser, report=report, step=high * 1.01)
     with pytest.raises(pg.Refused, match="outside the admissible interval"):
         pg.douglas_rachford(fidelity, denoiser, report=report, step=low * 0.99)
+
+
+def test_a_map_without_fixed_point_stalls_and_the_policy_stops_it():
+    # T x = D(x - eta grad f) with D a translation by 0.01 has no fixed point on the missing
+    # pixels: the residual settles at the minimal displacement (Pazy 1971; THEORY.md section 5).
+    op = pg.PixelMask(pg.random_pixel_mask(SHAPE, 0.5, seed=4))
+    fidelity = pg.LeastSquares(op, RNG.random(SHAPE))
+    shift = pg.as_denoiser(lambda z: z + 0.01, name="shift", backend="torch")
+    policy = pg.Policy(stall="stop", stall_window=20)
+    result = pg.forward_backward(fidelity, shift, guard=False, policy=policy, max_iter=1000, progress=True)
+    assert not result.converged and result.iterations < 100
+    assert result.flags[-1].kind == "stall" and "stopped by the monitor" in result.message
