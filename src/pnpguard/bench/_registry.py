@@ -1,0 +1,132 @@
+"""The denoisers shipped with pnpguard, by name, with factories.
+
+Each entry builds a :class:`~pnpguard.Denoiser` from one number, its
+*strength*, and the image shape. For most denoisers the strength is the noise
+level in intensity units; for Gaussian smoothing it is the kernel width in
+pixels. The benchmark suite runs every entry with every PnP algorithm, and the
+command line resolves denoiser names here.
+"""
+
+from __future__ import annotations
+
+import difflib
+from collections.abc import Callable
+from dataclasses import dataclass
+
+from ..denoisers import Denoiser, GaussianSmoothing, NonLocalMeans, TotalVariation, WaveletShrinkage
+
+Shape = tuple[int, int]
+
+
+@dataclass(frozen=True)
+class ShippedDenoiser:
+    """A shipped denoiser and how to build it.
+
+    Attributes
+    ----------
+    name : str
+        Registry name.
+    description : str
+        One line for listings.
+    strength : str
+        What the strength number means.
+    default_strength : float
+        Used when none is given (command-line checks).
+    grid : tuple of float
+        Strengths the tuning script tries (increasing).
+    structure : {"proved", "black box"}
+        ``"proved"``: the denoiser carries verified facts, so its check is a
+        proof and costs no denoiser calls. ``"black box"``: its constants are
+        estimated by the pair search of :func:`pnpguard.check_denoiser`.
+    build : callable
+        ``build(strength, shape) -> Denoiser``.
+    """
+
+    name: str
+    description: str
+    strength: str
+    default_strength: float
+    grid: tuple[float, ...]
+    structure: str
+    build: Callable[[float, Shape], Denoiser]
+
+    def make(self, strength: float, shape: Shape) -> Denoiser:
+        """Build the denoiser at ``strength`` for images of ``shape``."""
+        return self.build(float(strength), tuple(shape))
+
+
+#: Strengths tried when tuning: a geometric grid from 1e-4 to 0.1, ratio 10^(1/5).
+#: Inside PnP forward-backward at step 1/L the denoiser acts as the proximal
+#: step of the regulariser scaled by that step, so the best strengths are far
+#: below the data's noise level (1e-4 to 1e-2 on our tasks).
+_STRENGTH_GRID = tuple(round(10.0 ** (k / 5), 6) for k in range(-20, -4))
+
+_REGISTRY: dict[str, ShippedDenoiser] = {
+    entry.name: entry
+    for entry in (
+        ShippedDenoiser(
+            "gaussian",
+            "Gaussian smoothing, periodic (linear symmetric; spectrum computed)",
+            "kernel width in pixels",
+            0.8,
+            (0.1, 0.15, 0.2, 0.25, 0.3, 0.4, 0.5, 0.65, 0.8, 1.0, 1.3),
+            "proved",
+            lambda s, shape: GaussianSmoothing(s, shape=shape, name="gaussian"),
+        ),
+        ShippedDenoiser(
+            "wavelet",
+            "soft thresholding in a db4 basis, 2x2 cycle spinning (a proximal operator)",
+            "noise level",
+            0.02,
+            _STRENGTH_GRID,
+            "proved",
+            lambda s, shape: WaveletShrinkage(sigma=s, cycle_spins=2, name="wavelet"),
+        ),
+        ShippedDenoiser(
+            "tv",
+            "total-variation denoising (an inexact proximal operator)",
+            "noise level",
+            0.02,
+            _STRENGTH_GRID,
+            "proved",
+            lambda s, shape: TotalVariation(sigma=s, name="tv"),
+        ),
+        ShippedDenoiser(
+            "nlm",
+            "non-local means (scikit-image; no known facts)",
+            "noise level",
+            0.05,
+            _STRENGTH_GRID,
+            "black box",
+            lambda s, shape: NonLocalMeans(sigma=s, name="nlm"),
+        ),
+    )
+}
+
+
+def shipped_denoisers() -> tuple[ShippedDenoiser, ...]:
+    """Every shipped denoiser, in registry order."""
+    return tuple(_REGISTRY.values())
+
+
+def denoiser_names() -> tuple[str, ...]:
+    """Names accepted by :func:`get_denoiser`, in registry order."""
+    return tuple(_REGISTRY)
+
+
+def get_denoiser(name: str) -> ShippedDenoiser:
+    """The registry entry called ``name``.
+
+    Raises
+    ------
+    ValueError
+        If ``name`` is unknown (the message lists the valid names).
+    """
+    if name not in _REGISTRY:
+        close = difflib.get_close_matches(str(name), list(_REGISTRY), n=1)
+        hint = f"; did you mean {close[0]!r}?" if close else ""
+        raise ValueError(
+            f"unknown shipped denoiser {name!r}: valid names are "
+            f"{', '.join(sorted(_REGISTRY))}{hint}"
+        )
+    return _REGISTRY[name]

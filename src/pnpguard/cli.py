@@ -1,0 +1,492 @@
+"""The ``pnpguard`` command line.
+
+Verbs::
+
+    pnpguard demo                          run the main demonstration
+    pnpguard check DENOISER IMAGE          check a denoiser, print guarantees per algorithm
+    pnpguard benchmark [SUITE]             run a benchmark suite into a result file
+    pnpguard compare OLD NEW               compare two result files (exit 1 on a regression)
+    pnpguard report RESULTS                write a markdown report with figures
+    pnpguard list WHAT                     list suites, tasks, denoisers or phantoms
+
+Exit status: 0 on success, 1 when ``compare`` finds a regression, 2 on a
+usage error (printed as one line starting with ``pnpguard: error:``).
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import os
+import sys
+import warnings
+from collections.abc import Sequence
+from pathlib import Path
+from typing import Any, NoReturn
+
+import numpy as np
+
+PROG = "pnpguard"
+
+
+class UsageError(Exception):
+    """A mistake in what the user asked for; reported as one line, exit status 2."""
+
+
+class _Parser(argparse.ArgumentParser):
+    """An argument parser whose errors are one line and exit with status 2."""
+
+    def error(self, message: str) -> NoReturn:
+        raise UsageError(f"{message} (see '{self.prog} --help')")
+
+
+# ------------------------------------------------------------------- helpers
+def _load_image(path: str) -> np.ndarray:
+    """A grey float64 image from ``.npy`` or any format scikit-image reads."""
+    file = Path(path)
+    if not file.is_file():
+        raise UsageError(f"image file {path!r} does not exist")
+    try:
+        if file.suffix.lower() == ".npy":
+            image = np.load(file, allow_pickle=False)
+        else:
+            import skimage.io
+
+            with warnings.catch_warnings():
+                # Plugin discovery on unreadable files warns about deprecated readers.
+                warnings.simplefilter("ignore", DeprecationWarning)
+                image = skimage.io.imread(file)
+    except Exception as error:  # any reader failure is a bad file
+        raise UsageError(f"cannot read image {path!r}: {error}") from None
+    image = np.asarray(image)
+    if image.dtype == bool or not (np.issubdtype(image.dtype, np.integer) or np.issubdtype(image.dtype, np.floating)):
+        raise UsageError(f"image {path!r} has dtype {image.dtype}; expected integer or float pixels")
+    if image.ndim == 3 and image.shape[-1] in (3, 4):
+        import skimage.color
+
+        rgb = image[..., :3]
+        if np.issubdtype(rgb.dtype, np.integer):
+            rgb = rgb / float(np.iinfo(rgb.dtype).max)
+        image = skimage.color.rgb2gray(rgb)
+    elif np.issubdtype(image.dtype, np.integer):
+        image = image / float(np.iinfo(image.dtype).max)
+    if image.ndim != 2:
+        raise UsageError(f"image {path!r} has shape {image.shape}; expected a 2-D grey or RGB(A) image")
+    image = image.astype(np.float64)
+    if not np.isfinite(image).all():
+        raise UsageError(f"image {path!r} has non-finite pixels")
+    if min(image.shape) < 16:
+        raise UsageError(f"image {path!r} is {image.shape[0]}x{image.shape[1]}; use at least 16x16 pixels")
+    return image
+
+
+def _import_object(spec: str) -> Any:
+    """``module:attribute`` (attribute may be dotted) -> the object; cwd is importable."""
+    module_name, _, attribute = spec.partition(":")
+    if not module_name or not attribute:
+        raise UsageError(f"{spec!r} is not of the form module:attribute")
+    sys.path.insert(0, os.getcwd())
+    try:
+        module = importlib.import_module(module_name)
+    except Exception as error:  # the user's module failed to import
+        raise UsageError(f"cannot import module {module_name!r}: {type(error).__name__}: {error}") from None
+    finally:
+        sys.path.pop(0)
+    obj = module
+    for part in attribute.split("."):
+        if not hasattr(obj, part):
+            raise UsageError(f"module {module_name!r} has no attribute {attribute!r}")
+        obj = getattr(obj, part)
+    return obj
+
+
+def _user_denoiser(spec: str, strength: float | None) -> Any:
+    import torch
+
+    from .denoisers import Denoiser, as_denoiser
+
+    obj = _import_object(spec)
+    if isinstance(obj, type):
+        raise UsageError(
+            f"{spec!r} is a class; give an instance (a Denoiser or torch module) or a function "
+            "image -> image"
+        )
+    if isinstance(obj, Denoiser):
+        if strength is not None:
+            raise UsageError(f"{spec!r} is already a Denoiser; --strength applies to functions and modules only")
+        return obj
+    if not (callable(obj) or isinstance(obj, torch.nn.Module)):
+        raise UsageError(f"{spec!r} is a {type(obj).__name__}, not a denoiser, module or function")
+    return as_denoiser(obj, name=spec.partition(":")[2], sigma=strength)
+
+
+def _strength_for(name: str, task: str, given: float | None) -> tuple[float, str]:
+    from .bench import get_denoiser, load_tuned
+
+    if given is not None:
+        return given, "given"
+    try:
+        return load_tuned().strength(task, name), f"tuned for task {task}"
+    except (KeyError, FileNotFoundError, ValueError):
+        return get_denoiser(name).default_strength, "registry default"
+
+
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a positive integer, got {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"expected a positive integer, got {text!r}")
+    return value
+
+
+def _nonnegative_float(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+    if not (np.isfinite(value) and value >= 0):
+        raise argparse.ArgumentTypeError(f"expected a non-negative number, got {text!r}")
+    return value
+
+
+def _positive_float(text: str) -> float:
+    value = _nonnegative_float(text)
+    if value == 0:
+        raise argparse.ArgumentTypeError(f"expected a positive number, got {text!r}")
+    return value
+
+
+def _aspects(text: str) -> tuple[str, ...]:
+    from .bench import ASPECTS
+
+    values = tuple(part.strip() for part in text.split(",") if part.strip())
+    unknown = [v for v in values if v not in ASPECTS]
+    if unknown or not values:
+        raise argparse.ArgumentTypeError(
+            f"expected a comma-separated list of {', '.join(ASPECTS)}, got {text!r}"
+        )
+    return values
+
+
+# --------------------------------------------------------------------- verbs
+def _demo(args: argparse.Namespace) -> int:
+    try:
+        demo = importlib.import_module("pnpguard.demo")
+    except ModuleNotFoundError as error:
+        if error.name == "pnpguard.demo":
+            raise UsageError("the demo is not part of this installation of pnpguard") from None
+        raise
+    saved = sys.argv
+    sys.argv = [f"{PROG} demo", *args.demo_args]
+    try:
+        status = demo.main()
+    finally:
+        sys.argv = saved
+    return int(status or 0)
+
+
+def _check(args: argparse.Namespace) -> int:
+    from .bench import CAUTION, denoiser_names, get_denoiser, get_task
+    from .check import check_denoiser
+    from .guarantee import ALGORITHMS, Refused, admissible
+
+    try:
+        task = get_task(args.task)
+    except ValueError as error:
+        raise UsageError(str(error)) from None
+    image = _load_image(args.image)
+    try:
+        problem = task.problem(image.shape, image=image)
+    except ValueError as error:
+        raise UsageError(f"task {task.name!r} cannot use this image: {error}") from None
+    user = ":" in args.denoiser
+    if user:
+        denoiser = _user_denoiser(args.denoiser, args.strength)
+        how = "user's"
+    else:
+        if args.denoiser not in denoiser_names():
+            try:
+                get_denoiser(args.denoiser)
+            except ValueError as error:
+                raise UsageError(f"{error}, or give a Python callable as module:attribute") from None
+        strength, how = _strength_for(args.denoiser, task.name, args.strength)
+        denoiser = get_denoiser(args.denoiser).make(strength, problem.shape)
+        how = f"strength {strength:g} ({how})"
+    print(f"image {args.image}: {image.shape[0]}x{image.shape[1]}, task {task.name} ({task.family}), "
+          f"noise {100 * task.noise:g} % of the data peak (sigma = {problem.sigma:.4g})")
+    print(f"denoiser {denoiser.name}: {how}")
+    print()
+    try:
+        report = check_denoiser(
+            denoiser, problem.start(), budget=args.budget, seed=args.seed, cross_check=args.cross_check
+        )
+    except Exception as error:
+        if not user:
+            raise
+        raise UsageError(f"the denoiser {args.denoiser!r} failed: {type(error).__name__}: {error}") from None
+    print(report)
+    for algorithm in sorted(ALGORITHMS):
+        print()
+        try:
+            print(admissible(algorithm, problem.fidelity, report, margin=args.margin))
+        except Refused as refusal:
+            print(f"guarantee for {algorithm}: REFUSED")
+            print("\n".join(f"  {line}" for line in str(refusal).splitlines()))
+    if task.family == "tomography":
+        print()
+        print(CAUTION)
+    return 0
+
+
+def _benchmark(args: argparse.Namespace) -> int:
+    from .bench import (
+        CAUTION,
+        custom_suite,
+        family_gaps,
+        get_suite,
+        load_tuned,
+        ranking,
+        run_suite,
+    )
+
+    try:
+        suite = get_suite(args.suite)
+        if args.tasks or args.size or args.max_iter:
+            suite = custom_suite(
+                args.tasks or [t.name for t in suite.tasks],
+                shape=(args.size, args.size) if args.size else suite.shape,
+                max_iter=args.max_iter or suite.max_iter,
+                tol=suite.tol,
+                check_budget=suite.check_budget,
+                name=f"{suite.name}-custom",
+            )
+        tuned = load_tuned(args.tuned)
+    except (ValueError, FileNotFoundError) as error:
+        raise UsageError(str(error)) from None
+    output = Path(args.output or f"benchmark-{suite.name}.json")
+    try:
+        run = run_suite(
+            suite,
+            tuned=tuned,
+            methods=args.methods,
+            check_budget=args.check_budget,
+            seed=args.seed,
+            threads=args.threads,
+            progress=sys.stderr.isatty() if args.progress is None else args.progress,
+        )
+    except (ValueError, KeyError) as error:
+        raise UsageError(str(error.args[0])) from None
+    path = run.save(output, images=args.images)
+    document = run.document
+    print(f"suite {suite.name}: {len(document['results'])} runs in {document['seconds']:.1f} s")
+    for task in document["tasks"]:
+        ranked = ranking(document, task["name"])[:3]
+        top = ", ".join(f"{r['method']} {r['psnr']:.2f} dB" for r in ranked)
+        print(f"  {task['name']}: {top}")
+    for gap in family_gaps(document):
+        print(f"  {gap.family}: best PnP - best baseline = {gap.mean_gap:+.2f} dB on average"
+              f" ({'goal met' if gap.goal_met else 'goal of +1 dB not met'})")
+    npz = path.with_suffix(".npz")
+    print(f"wrote {path}" + (f" and {npz}" if args.images and npz.is_file() else ""))
+    if document.get("caution"):
+        print(CAUTION)
+    return 0
+
+
+def _compare(args: argparse.Namespace) -> int:
+    from .bench import compare_results, load_results
+
+    try:
+        old, new = load_results(args.old), load_results(args.new)
+        comparison = compare_results(
+            old, new, aspects=args.aspects, psnr_tol=args.psnr_tol, ssim_tol=args.ssim_tol,
+            time_ratio=args.time_ratio,
+        )
+    except (ValueError, FileNotFoundError) as error:
+        raise UsageError(str(error)) from None
+    print(comparison)
+    return 0 if comparison.passed else 1
+
+
+def _report(args: argparse.Namespace) -> int:
+    from .bench import CAUTION, load_arrays, load_results, write_report
+
+    try:
+        document = load_results(args.results)
+    except (ValueError, FileNotFoundError) as error:
+        raise UsageError(str(error)) from None
+    arrays = {} if args.no_figures else load_arrays(args.results, document)
+    directory = Path(args.output or Path(args.results).with_suffix("").name + "-report")
+    try:
+        path = write_report(document, directory, arrays=arrays)
+    except ImportError as error:
+        raise UsageError(str(error)) from None
+    print(f"wrote {path}" + (" and figures" if arrays else " (no figures: no images saved with the results)"))
+    if document.get("caution"):
+        print(CAUTION)
+    return 0
+
+
+def _list(args: argparse.Namespace) -> int:
+    from . import phantoms
+    from .bench import get_suite, get_task, shipped_denoisers, suite_names, task_names
+
+    if args.what == "suites":
+        for name in suite_names():
+            suite = get_suite(name)
+            print(f"{name}: {len(suite.tasks)} tasks at {suite.shape[0]}x{suite.shape[1]}, "
+                  f"max_iter {suite.max_iter}: {', '.join(t.name for t in suite.tasks)}")
+    elif args.what == "tasks":
+        for name in task_names():
+            task = get_task(name)
+            print(f"{name}: {task.family}, {task.model.describe()}, noise {100 * task.noise:g} %, "
+                  f"phantom {task.phantom}")
+    elif args.what == "denoisers":
+        for entry in shipped_denoisers():
+            print(f"{entry.name}: {entry.description}; strength = {entry.strength}; {entry.structure}")
+    else:
+        print("\n".join(phantoms.phantom_names()))
+    return 0
+
+
+# -------------------------------------------------------------------- parser
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of the ``pnpguard`` command."""
+    from . import __version__
+    from .bench import DEFAULT_PSNR_TOL, DEFAULT_SSIM_TOL, suite_names
+
+    parser = _Parser(
+        prog=PROG,
+        description="Convergent plug-and-play image reconstruction: check denoisers, get "
+        "step-size guarantees, run and compare benchmark suites.",
+    )
+    parser.add_argument("--version", action="version", version=f"{PROG} {__version__}")
+    verbs = parser.add_subparsers(dest="verb", metavar="VERB", required=True)
+
+    demo = verbs.add_parser("demo", help="run the main demonstration",
+                            description="Run the main demonstration of the library; further "
+                            "arguments are passed to it.")
+    demo.set_defaults(run=_demo)
+
+    check = verbs.add_parser(
+        "check",
+        help="check a denoiser on an image and print the guarantees per algorithm",
+        description="Measure a denoiser's averagedness and Lipschitz constants on a sample "
+        "image (a proof for denoisers with verified structure, a search otherwise) and print, "
+        "for each PnP algorithm, the admissible step and relaxation or the reasons for refusal. "
+        "The forward model and noise come from a benchmark task applied to the image.",
+    )
+    check.add_argument("denoiser", help="a shipped denoiser name (see 'pnpguard list denoisers') or "
+                       "a Python callable or torch module as module:attribute (importable from "
+                       "the current directory)")
+    check.add_argument("image", help="sample image: .npy or any format scikit-image reads "
+                       "(integer images are scaled to [0, 1], colour converted to grey)")
+    check.add_argument("--task", default="deblur-gaussian-1pct",
+                       help="benchmark task giving the forward model and noise (default: %(default)s)")
+    check.add_argument("--strength", type=_positive_float, default=None,
+                       help="denoiser strength (shipped denoisers: default the tuned value for the "
+                       "task; callables: recorded as their noise level)")
+    check.add_argument("--budget", type=_positive_int, default=200,
+                       help="denoiser calls for a black-box check (default: %(default)s, minimum 20)")
+    check.add_argument("--seed", type=int, default=0, help="seed of the check's search (default: 0)")
+    check.add_argument("--margin", type=_nonnegative_float, default=0.05,
+                       help="relative inflation of estimated constants (default: %(default)s)")
+    check.add_argument("--cross-check", action="store_true",
+                       help="also search pairs when the structure proves the constants")
+    check.set_defaults(run=_check)
+
+    bench = verbs.add_parser(
+        "benchmark",
+        help="run a benchmark suite and write a result file",
+        description="Run every task of a suite with every guarded PnP method (algorithm x "
+        "shipped denoiser) and the classical baselines, with the frozen tuned parameters; "
+        "write a JSON result file and, unless --no-images, the images beside it (.npz).",
+    )
+    bench.add_argument("suite", nargs="?", default="quick",
+                       help=f"suite name: {', '.join(suite_names())} (default: %(default)s)")
+    bench.add_argument("--output", "-o", default=None,
+                       help="result file (default: benchmark-<suite>.json)")
+    bench.add_argument("--tasks", nargs="+", default=None, help="run only these tasks")
+    bench.add_argument("--methods", nargs="+", default=None,
+                       help="run only these methods, e.g. tikhonov fb/wavelet")
+    bench.add_argument("--size", type=_positive_int, default=None, help="image side in pixels (default: the suite's)")
+    bench.add_argument("--max-iter", type=_positive_int, default=None, help="iteration cap of PnP runs (default: the suite's)")
+    bench.add_argument("--check-budget", type=_positive_int, default=None,
+                       help="denoiser calls per black-box check (default: the suite's)")
+    bench.add_argument("--seed", type=int, default=0, help="seed of the denoiser checks (default: 0)")
+    bench.add_argument("--threads", type=_positive_int, default=1,
+                       help="torch threads; 1 (default) gives identical numbers on reruns")
+    bench.add_argument("--tuned", default=None, help="tuned-parameter file (default: the shipped one)")
+    bench.add_argument("--images", action=argparse.BooleanOptionalAction, default=True,
+                       help="save truths, data, reconstructions and residual curves (.npz)")
+    bench.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
+                       help="progress bar on standard error (default: when it is a terminal)")
+    bench.set_defaults(run=_benchmark)
+
+    compare = verbs.add_parser(
+        "compare",
+        help="compare two result files; exit status 1 on a regression",
+        description="Compare a new result file with an old (baseline) one: PSNR/SSIM drops "
+        "beyond the tolerances, changed run status, check verdict or guarantee, new monitor "
+        "flags, missing runs (and, on request, timings). Exit status 1 on a regression.",
+    )
+    compare.add_argument("old", help="baseline result file")
+    compare.add_argument("new", help="new result file")
+    compare.add_argument("--psnr-tol", type=_nonnegative_float, default=DEFAULT_PSNR_TOL,
+                         help="allowed PSNR drop in dB (default: %(default)s)")
+    compare.add_argument("--ssim-tol", type=_nonnegative_float, default=DEFAULT_SSIM_TOL,
+                         help="allowed SSIM drop (default: %(default)s)")
+    compare.add_argument("--aspects", type=_aspects, default=("flags", "quality", "verdicts"),
+                         help="comma-separated aspects to check among flags, quality, timings, "
+                         "verdicts (default: flags,quality,verdicts)")
+    compare.add_argument("--time-ratio", type=_positive_float, default=2.0,
+                         help="with timings: allowed slow-down factor (default: %(default)s)")
+    compare.set_defaults(run=_compare)
+
+    report = verbs.add_parser(
+        "report",
+        help="write a markdown report with figures from a result file",
+        description="Write report.md (task x method table, ranking per task, best PnP against "
+        "best baseline per family, guarantees and flags) and PNG figures (image panels, "
+        "residual curves; needs matplotlib and the images saved with the results).",
+    )
+    report.add_argument("results", help="result file written by 'pnpguard benchmark'")
+    report.add_argument("--output", "-o", default=None, help="directory (default: <results>-report)")
+    report.add_argument("--no-figures", action="store_true", help="write the markdown only")
+    report.set_defaults(run=_report)
+
+    listing = verbs.add_parser("list", help="list suites, tasks, shipped denoisers or phantoms",
+                               description="List what the other verbs accept by name.")
+    listing.add_argument("what", choices=("denoisers", "phantoms", "suites", "tasks"))
+    listing.set_defaults(run=_list)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the command line; return the exit status.
+
+    Parameters
+    ----------
+    argv : sequence of str, optional
+        Arguments without the program name; default ``sys.argv[1:]``.
+    """
+    try:
+        parser = build_parser()
+        args, extra = parser.parse_known_args(argv)
+        if args.verb == "demo":
+            args.demo_args = extra  # everything after "demo" belongs to the demo
+        elif extra:
+            parser.error(f"unrecognized arguments: {' '.join(extra)}")
+        return args.run(args)
+    except UsageError as error:
+        print(f"{PROG}: error: {error}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print(f"{PROG}: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

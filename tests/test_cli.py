@@ -1,0 +1,182 @@
+"""The pnpguard command line, run as a subprocess like a user would."""
+
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+import types
+from pathlib import Path
+
+import numpy as np
+import pytest
+import skimage.io
+
+from pnpguard import phantoms
+from pnpguard.cli import main
+
+VERBS = ("benchmark", "check", "compare", "demo", "list", "report")
+
+
+def run(*args: str, cwd: Path | None = None) -> subprocess.CompletedProcess:
+    """``python -m pnpguard.cli ARGS`` with one BLAS and one torch thread."""
+    env = {**os.environ, "OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1"}
+    return subprocess.run(
+        [sys.executable, "-m", "pnpguard.cli", *args],
+        capture_output=True,
+        text=True,
+        cwd=cwd,
+        env=env,
+        timeout=300,
+    )
+
+
+def assert_usage_error(done: subprocess.CompletedProcess, *words: str) -> None:
+    """Exit status 2, one line on stderr starting with 'pnpguard: error:', no traceback."""
+    assert done.returncode == 2, done.stderr
+    lines = done.stderr.strip().splitlines()
+    assert len(lines) == 1, done.stderr
+    assert lines[0].startswith("pnpguard: error:")
+    assert "Traceback" not in done.stderr
+    for word in words:
+        assert word in lines[0], lines[0]
+
+
+@pytest.fixture(scope="module")
+def frame(tmp_path_factory) -> Path:
+    """A 32 x 32 cells frame saved as an 8-bit PNG."""
+    path = tmp_path_factory.mktemp("images") / "frame.png"
+    image = phantoms.make_phantom("cells", (32, 32), seed=3)
+    skimage.io.imsave(path, (255 * image).round().astype(np.uint8), check_contrast=False)
+    return path
+
+
+@pytest.fixture(scope="module")
+def results(tmp_path_factory) -> Path:
+    """A tiny benchmark result file written by the CLI."""
+    path = tmp_path_factory.mktemp("bench") / "tiny.json"
+    done = run(
+        "benchmark", "quick", "--tasks", "superres-x2", "--methods", "bicubic", "tikhonov",
+        "fb/gaussian", "--size", "32", "--max-iter", "10", "--output", str(path), "--no-progress",
+    )
+    assert done.returncode == 0, done.stderr
+    assert "superres-x2" in done.stdout and str(path) in done.stdout
+    return path
+
+
+def test_help_lists_every_verb_and_each_verb_has_help(capsys):
+    # The installed script and python -m pnpguard.cli share main().
+    done = run("--help")
+    assert done.returncode == 0
+    for verb in VERBS:
+        assert verb in done.stdout
+    for verb in VERBS:
+        with pytest.raises(SystemExit) as exit_info:
+            main([verb, "--help"])
+        assert exit_info.value.code == 0
+        assert "usage: pnpguard " + verb in capsys.readouterr().out
+
+
+def test_usage_error_in_a_subprocess_is_one_line_without_traceback():
+    assert_usage_error(run("benchmark", "fastest"), "unknown suite", "quick")
+
+
+def _usage_error(capsys, argv, *words):
+    assert main(argv) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("pnpguard: error:"), err
+    for word in words:
+        assert word in err[0], err[0]
+
+
+@pytest.mark.parametrize(
+    "argv, words",
+    [
+        ([], ["VERB"]),
+        (["frobnicate"], ["invalid choice"]),
+        (["benchmark", "--tasks", "superres-x3"], ["unknown task", "superres-x2"]),
+        (["benchmark", "--threads", "0"], ["positive integer"]),
+        (["compare", "a.json"], ["required"]),
+        (["compare", "a.json", "b.json"], ["does not exist"]),
+        (["compare", "a.json", "b.json", "--aspects", "speed"], ["quality"]),
+        (["report", "missing.json"], ["does not exist"]),
+        (["list", "colours"], ["invalid choice"]),
+        (["check", "wavelet", "missing.png"], ["does not exist"]),
+    ],
+)
+def test_argument_mistakes(argv, words, capsys):
+    _usage_error(capsys, argv, *words)
+
+
+def test_check_names_and_images_mistakes(tmp_path, frame, capsys):
+    _usage_error(capsys, ["check", "wavelets", str(frame)], "unknown shipped denoiser", "wavelet")
+    _usage_error(capsys, ["check", "no_such_module:f", str(frame)], "cannot import module")
+    _usage_error(capsys, ["check", "wavelet", str(frame), "--task", "ct-31-views"], "unknown task")
+    odd = tmp_path / "odd.npy"
+    np.save(odd, np.random.default_rng(0).random((33, 33)))
+    _usage_error(capsys, ["check", "gaussian", str(odd), "--task", "superres-x2"], "divisible")
+    text = tmp_path / "notes.txt"
+    text.write_text("not an image")
+    _usage_error(capsys, ["check", "gaussian", str(text)], "cannot read image")
+
+
+def test_check_shipped_denoiser_prints_report_and_guarantees(frame):
+    done = run("check", "wavelet", str(frame), "--task", "superres-x2")
+    assert done.returncode == 0, done.stderr
+    assert "verdict            PROVED" in done.stdout
+    for algorithm in ("admm", "douglas_rachford", "forward_backward"):
+        assert f"guarantee for {algorithm}" in done.stdout
+    assert "Caution" not in done.stdout
+
+
+def test_check_user_callable_from_the_current_directory(tmp_path, frame, capsys, monkeypatch):
+    (tmp_path / "lab_filters.py").write_text("def halve(x):\n    return 0.5 * x\n\nnot_callable = 3\n")
+    monkeypatch.chdir(tmp_path)
+    assert main(["check", "lab_filters:halve", str(frame), "--budget", "20", "--task", "ct-30-views"]) == 0
+    out = capsys.readouterr().out
+    assert "ESTIMATED" in out
+    assert "Caution: a convergence guarantee is not a correctness guarantee" in out
+    _usage_error(capsys, ["check", "lab_filters:missing", str(frame)], "no attribute")
+    _usage_error(capsys, ["check", "lab_filters:not_callable", str(frame)], "not a denoiser")
+
+
+def test_benchmark_compare_and_report(results, tmp_path):
+    document = json.loads(results.read_text())
+    assert {r["method"] for r in document["results"]} == {"bicubic", "tikhonov", "fb/gaussian"}
+    assert results.with_suffix(".npz").is_file()
+    assert main(["compare", str(results), str(results)]) == 0
+    worse = tmp_path / "worse.json"
+    target = next(r for r in document["results"] if r["method"] == "tikhonov")
+    target["psnr"] -= 1.0
+    worse.write_text(json.dumps(document))
+    dropped = run("compare", str(results), str(worse))
+    assert dropped.returncode == 1
+    assert "REGRESSION" in dropped.stdout and "tikhonov" in dropped.stdout
+    assert main(["report", str(results), "--output", str(tmp_path / "report")]) == 0
+    text = (tmp_path / "report" / "report.md").read_text()
+    assert "| tikhonov | baseline |" in text
+    assert (tmp_path / "report" / "superres-x2-images.png").is_file()
+
+
+def test_list_names(capsys):
+    assert main(["list", "denoisers"]) == 0
+    out = capsys.readouterr().out
+    assert "wavelet" in out and "nlm" in out
+    assert main(["list", "tasks"]) == 0
+    assert "ct-limited-120deg" in capsys.readouterr().out
+
+
+def test_demo_verb_calls_the_demo_main_with_its_arguments(monkeypatch):
+    # Stand-in for pnpguard.demo, so that the test checks the wiring, not the demo.
+    seen = {}
+    fake = types.ModuleType("pnpguard.demo")
+
+    def fake_main():
+        seen["argv"] = list(sys.argv)
+        return 0
+
+    fake.main = fake_main
+    monkeypatch.setitem(sys.modules, "pnpguard.demo", fake)
+    assert main(["demo", "--fast"]) == 0
+    assert seen["argv"] == ["pnpguard demo", "--fast"]
