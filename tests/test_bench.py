@@ -206,7 +206,7 @@ def test_richardson_lucy_sees_the_periodic_blur():
 
 # ------------------------------------------------------------------ runner
 def test_tiny_suite_runs_and_writes_valid_json(tiny):
-    suite, run, path = tiny
+    suite, _, path = tiny
     text = path.read_text()
     # Strict JSON: no NaN or Infinity tokens.
     document = json.loads(text, parse_constant=lambda token: pytest.fail(f"non-JSON number {token}"))

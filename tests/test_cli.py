@@ -25,6 +25,7 @@ def run(*args: str, cwd: Path | None = None) -> subprocess.CompletedProcess:
     return subprocess.run(
         [sys.executable, "-m", "pnpguard.cli", *args],
         capture_output=True,
+        check=False,
         text=True,
         cwd=cwd,
         env=env,

@@ -28,7 +28,14 @@ from ._compare import (
 )
 from ._methods import BASELINES, Method, methods_for
 from ._registry import ShippedDenoiser, denoiser_names, get_denoiser, shipped_denoisers
-from ._report import GOAL_DB, FamilyGap, family_gaps, markdown_report, ranking, write_report
+from ._report import (
+    GOAL_DB,
+    FamilyGap,
+    family_gaps,
+    markdown_report,
+    ranking,
+    write_report,
+)
 from ._results import CAUTION, BenchmarkRun, load_arrays, load_results
 from ._runner import run_suite
 from ._tasks import (

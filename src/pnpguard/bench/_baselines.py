@@ -18,7 +18,13 @@ from skimage.restoration import richardson_lucy as skimage_richardson_lucy
 
 from ..denoisers._tv import forward_gradient, gradient_adjoint
 from ..fidelity import conjugate_gradient
-from ..operators import Convolution, Decimation, ParallelProjection, PixelMask, filtered_backprojection
+from ..operators import (
+    Convolution,
+    Decimation,
+    ParallelProjection,
+    PixelMask,
+    filtered_backprojection,
+)
 from ..operators._convolution import periodic_transfer
 from ._tasks import Problem
 

@@ -13,7 +13,13 @@ import difflib
 from collections.abc import Callable
 from dataclasses import dataclass
 
-from ..denoisers import Denoiser, GaussianSmoothing, NonLocalMeans, TotalVariation, WaveletShrinkage
+from ..denoisers import (
+    Denoiser,
+    GaussianSmoothing,
+    NonLocalMeans,
+    TotalVariation,
+    WaveletShrinkage,
+)
 
 Shape = tuple[int, int]
 

@@ -124,16 +124,25 @@ def markdown_report(document: dict[str, Any], figures: dict[str, list[str]] | No
     lines = [
         f"# pnpguard benchmark: suite `{suite['name']}`",
         "",
-        f"- {len(tasks)} tasks at {suite['shape'][0]}x{suite['shape'][1]}, "
-        f"{len(document['results'])} runs, {document['seconds']:.1f} s in total "
-        f"({document['created']})",
-        f"- pnpguard {env['pnpguard']} (commit {commit}{', modified checkout' if env.get('git_dirty') else ''}), "
-        f"torch {env['torch']}, numpy {env['numpy']}, Python {env['python']}",
+        (
+            f"- {len(tasks)} tasks at {suite['shape'][0]}x{suite['shape'][1]}, "
+            f"{len(document['results'])} runs, {document['seconds']:.1f} s in total "
+            f"({document['created']})"
+        ),
+        (
+            f"- pnpguard {env['pnpguard']} (commit {commit}"
+            f"{', modified checkout' if env.get('git_dirty') else ''}), "
+            f"torch {env['torch']}, numpy {env['numpy']}, Python {env['python']}"
+        ),
         f"- machine: {env['platform']}, {env['cpu_count']} CPUs, {settings['threads']} torch thread(s)",
-        f"- PnP: max_iter {suite['max_iter']}, tol {suite['tol']:g}; black-box denoiser checks: "
-        f"{settings['check_budget']} calls, seed {settings['seed']}",
-        f"- parameters: {settings['tuned']['path']} (sha256 {settings['tuned']['sha256'][:12]}), "
-        "tuned on tuning phantoms, not on these",
+        (
+            f"- PnP: max_iter {suite['max_iter']}, tol {suite['tol']:g}; black-box denoiser checks: "
+            f"{settings['check_budget']} calls, seed {settings['seed']}"
+        ),
+        (
+            f"- parameters: {settings['tuned']['path']} (sha256 {settings['tuned']['sha256'][:12]}), "
+            "tuned on tuning phantoms, not on these"
+        ),
         "",
         "## PSNR (dB) / SSIM, task x method",
         "",

@@ -12,7 +12,15 @@ import numpy as np
 import torch
 
 from ..metrics import psnr, ssim
-from ._methods import DenoiserCache, Method, Outcome, final_residual, methods_for, run_baseline, run_pnp
+from ._methods import (
+    DenoiserCache,
+    Method,
+    Outcome,
+    final_residual,
+    methods_for,
+    run_baseline,
+    run_pnp,
+)
 from ._results import (
     CAUTION,
     FORMAT,

@@ -13,7 +13,6 @@ from __future__ import annotations
 import difflib
 import math
 from dataclasses import dataclass, field
-from typing import Union
 
 import numpy as np
 import torch
@@ -157,7 +156,7 @@ class Scan:
         return {"kind": "parallel_projection", "views": self.views, "arc_degrees": self.arc}
 
 
-Model = Union[Blur, Mask, Downsampling, Scan]
+Model = Blur | Mask | Downsampling | Scan
 
 
 # ------------------------------------------------------------------ tasks
