@@ -20,14 +20,21 @@ SIZE = 512
 REPEATS = 50
 
 
-def _median_seconds(function, repeats: int = REPEATS) -> float:
-    function()  # warm-up (caches, FFT plans)
-    times = []
+def _interleaved_medians(functions, repeats: int = REPEATS) -> list[float]:
+    """Median seconds of each function, timed in turn within every round.
+
+    Interleaving exposes all candidates to the same machine load, which matters
+    on a shared machine more than the number of repeats.
+    """
+    for function in functions:
+        function()  # warm-up (caches, FFT plans)
+    times = [[] for _ in functions]
     for _ in range(repeats):
-        start = time.perf_counter()
-        function()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times)
+        for slot, function in zip(times, functions):
+            start = time.perf_counter()
+            function()
+            slot.append(time.perf_counter() - start)
+    return [statistics.median(slot) for slot in times]
 
 
 def main() -> None:
@@ -48,9 +55,9 @@ def main() -> None:
         def kernel():
             return op._adjoint(op._forward(x))
 
-        t_bare, t_public, t_kernel = (_median_seconds(f) for f in (bare, public, kernel))
+        t_bare, t_public, t_kernel = _interleaved_medians((bare, public, kernel))
         print(f"{SIZE}x{SIZE} periodic blur, forward + adjoint, {str(dtype).replace('torch.', '')}, "
-              f"{torch.get_num_threads()} threads, median of {REPEATS}")
+              f"{torch.get_num_threads()} threads, median of {REPEATS} interleaved rounds")
         print(f"  bare torch.fft      {1e3 * t_bare:8.2f} ms")
         print(f"  pnpguard kernel     {1e3 * t_kernel:8.2f} ms   ratio {t_kernel / t_bare:.2f}")
         print(f"  pnpguard public API {1e3 * t_public:8.2f} ms   ratio {t_public / t_bare:.2f}")
