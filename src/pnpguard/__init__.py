@@ -13,6 +13,8 @@ from .denoisers import __all__ as _denoisers_all
 from .fidelity import LeastSquares
 from .guarantee import *  # noqa: F403
 from .guarantee import __all__ as _guarantee_all
+from .learned import *  # noqa: F403
+from .learned import __all__ as _learned_all
 from .metrics import psnr, ssim
 from .operators import *  # noqa: F403
 from .operators import __all__ as _operators_all
@@ -29,6 +31,7 @@ __all__ = [
     *_check_all,
     *_denoisers_all,
     *_guarantee_all,
+    *_learned_all,
     *_operators_all,
     *_solvers_all,
 ]

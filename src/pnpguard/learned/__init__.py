@@ -1,0 +1,43 @@
+"""Learned denoisers trained on this package's own data and shipped with it.
+
+- :func:`residual_cnn`: a DnCNN-style residual network conditioned on the
+  noise level (no guarantee; measure it).
+- :func:`averaged_cnn`: ``(1 - theta) I + theta N`` with ``N`` a convolutional
+  network whose layer norms are bounded for every image size; the
+  averagedness is re-proved from the weights each time they are loaded.
+- :func:`train_denoiser`: train either network on your own images;
+  :func:`load_denoiser` loads the result, :func:`module_denoiser` wraps any
+  torch network ``f(noisy, sigma)`` the same way.
+"""
+
+from ._averaged import AveragedCNN, LayerBounds
+from ._denoisers import (
+    LearnedDenoiser,
+    averaged_cnn,
+    load_denoiser,
+    load_network,
+    module_denoiser,
+    residual_cnn,
+    verified_layer_bounds,
+)
+from ._lipschitz import circular_conv_norm, conv_norm_bound
+from ._residual import ResidualCNN
+from ._training import TrainingReport, load_training_images, train_denoiser
+
+__all__ = [
+    "AveragedCNN",
+    "LayerBounds",
+    "LearnedDenoiser",
+    "ResidualCNN",
+    "TrainingReport",
+    "averaged_cnn",
+    "circular_conv_norm",
+    "conv_norm_bound",
+    "load_denoiser",
+    "load_network",
+    "load_training_images",
+    "module_denoiser",
+    "residual_cnn",
+    "train_denoiser",
+    "verified_layer_bounds",
+]

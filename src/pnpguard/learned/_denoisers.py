@@ -1,0 +1,372 @@
+"""Learned networks as :class:`~pnpguard.denoisers.Denoiser` objects, shipped or your own."""
+
+from __future__ import annotations
+
+import copy
+import hashlib
+import math
+import warnings
+from collections.abc import Callable, Iterable
+from pathlib import Path
+
+import torch
+from torch import nn
+
+from ..denoisers._base import Denoiser, check_sigma
+from ..denoisers._facts import ClaimLike, Fact, as_claim
+from ._averaged import AveragedCNN, LayerBounds
+from ._residual import ResidualCNN
+from ._weights import read_weights
+
+#: Folder of the weights shipped with the package.
+WEIGHTS_DIR = Path(__file__).resolve().parent / "weights"
+RESIDUAL_WEIGHTS = WEIGHTS_DIR / "residual_cnn.pt"
+AVERAGED_WEIGHTS = WEIGHTS_DIR / "averaged_cnn.pt"
+
+_ARCHITECTURES: dict[str, type[nn.Module]] = {"AveragedCNN": AveragedCNN, "ResidualCNN": ResidualCNN}
+
+# Layer bounds recomputed in this process, keyed by a hash of the weights
+# they were computed from (never read from a file).
+_BOUNDS_CACHE: dict[str, LayerBounds] = {}
+
+
+class LearnedDenoiser(Denoiser):
+    """A torch network ``f(noisy, sigma, **options)`` presented as a Denoiser.
+
+    Handles the layouts ``(H, W)`` and ``(N, C, H, W)`` (channels are denoised
+    separately), runs the network in the input's dtype and on its device
+    (float64 inputs use a double-precision copy of the network), and is
+    differentiable (``apply_traced``).
+
+    Parameters
+    ----------
+    module : torch.nn.Module
+        Called as ``module(noisy, sigma, **options)`` on ``(N, C, H, W)``
+        tensors; it must return a tensor of the same shape. It is copied, so
+        later changes to ``module`` do not affect the denoiser.
+    name : str
+        Short name for reports.
+    sigma : float
+        Noise level passed to the network, in intensity units.
+    options : dict, optional
+        Extra keyword arguments of the call (for example ``{"theta": 0.9}``).
+    facts : iterable of Fact, optional
+        What is known about the map.
+    """
+
+    def __init__(
+        self,
+        module: nn.Module,
+        *,
+        name: str,
+        sigma: float,
+        options: dict[str, float] | None = None,
+        facts: Iterable[Fact] = (),
+    ) -> None:
+        if not isinstance(module, nn.Module):
+            raise TypeError(f"`module` must be a torch.nn.Module, got {type(module).__name__}")
+        super().__init__(name=name, sigma=check_sigma(sigma, required=True), differentiable=True, facts=facts)
+        self._module = copy.deepcopy(module).eval()
+        for parameter in self._module.parameters():
+            parameter.requires_grad_(False)
+        self._options = dict(options or {})
+        self._copies: dict[tuple[torch.dtype, torch.device], nn.Module] = {}
+
+    @property
+    def module(self) -> nn.Module:
+        """The wrapped network (float32 copy, evaluation mode)."""
+        return self._module
+
+    def _network_for(self, t: torch.Tensor) -> nn.Module:
+        key = (t.dtype, t.device)
+        if key not in self._copies:
+            self._copies[key] = copy.deepcopy(self._module).to(dtype=t.dtype, device=t.device)
+        return self._copies[key]
+
+    def _denoise(self, t: torch.Tensor) -> torch.Tensor:
+        # A copy, so that a network writing into its input cannot change the caller's data.
+        batch = (t[None, None] if t.ndim == 2 else t).clone()
+        out = self._network_for(t)(batch, self.sigma, **self._options)
+        return out[0, 0] if t.ndim == 2 else out
+
+
+def _weights_hash(module: nn.Module) -> str:
+    digest = hashlib.sha256()
+    for name, tensor in sorted(module.state_dict().items()):
+        digest.update(name.encode())
+        digest.update(tensor.detach().cpu().contiguous().numpy().tobytes())
+    return digest.hexdigest()
+
+
+def verified_layer_bounds(model: AveragedCNN) -> LayerBounds:
+    """Per-layer norm bounds of ``model``'s nonexpansive part, computed from its weights.
+
+    The result is recomputed from the weights (exact circular norms on a
+    128 x 128 frequency grid, widened to all image sizes; see
+    :func:`conv_norm_bound`) and memoised in this process under a SHA-256
+    hash of the weights, so a changed weight is always re-verified.
+    """
+    if not isinstance(model, AveragedCNN):
+        raise TypeError(f"`model` must be an AveragedCNN, got {type(model).__name__}")
+    key = _weights_hash(model)
+    if key not in _BOUNDS_CACHE:
+        _BOUNDS_CACHE[key] = model.layer_bounds()
+    return _BOUNDS_CACHE[key]
+
+
+def load_network(path: str | Path) -> nn.Module:
+    """Build the network stored in a weights file (see :func:`train_denoiser`).
+
+    Parameters
+    ----------
+    path : str or pathlib.Path
+        A weights file.
+
+    Returns
+    -------
+    torch.nn.Module
+        A :class:`ResidualCNN` or :class:`AveragedCNN` in evaluation mode.
+
+    Raises
+    ------
+    ValueError
+        If the file is not a pnpguard weights file, names an unknown
+        architecture, or its tensors do not fit the architecture.
+    """
+    return _load(path)[0]
+
+
+def _load(path: str | Path, expected: str | None = None) -> tuple[nn.Module, dict]:
+    payload = read_weights(path)
+    architecture = payload["architecture"]
+    if architecture not in _ARCHITECTURES:
+        raise ValueError(
+            f"`path` {str(path)!r} holds architecture {architecture!r}; "
+            f"known: {sorted(_ARCHITECTURES)}"
+        )
+    if expected is not None and architecture != expected:
+        raise ValueError(f"`weights` {str(path)!r} holds a {architecture}, not a {expected}")
+    try:
+        model = _ARCHITECTURES[architecture](**payload["config"])
+        model.load_state_dict(payload["state_dict"], strict=True)
+    except (TypeError, RuntimeError) as error:
+        raise ValueError(f"`path` {str(path)!r} does not fit {architecture}: {error}") from error
+    return model.eval(), payload["training"]
+
+
+def _check_trained_sigma(sigma: float, training: dict) -> float:
+    sigma = check_sigma(sigma, required=True)
+    low, high = training.get("noise_range", (0.0, math.inf))
+    if not low <= sigma <= high * (1 + 1e-9):
+        raise ValueError(
+            f"`sigma` = {sigma:g} is outside the noise range the network was trained on, "
+            f"[{low:g}, {high:g}] (i.e. [{low * 255:.3g}, {high * 255:.3g}]/255)"
+        )
+    return sigma
+
+
+def residual_cnn(sigma: float, *, weights: str | Path | None = None) -> LearnedDenoiser:
+    r"""The shipped residual CNN denoiser, set to noise level ``sigma``.
+
+    Parameters
+    ----------
+    sigma : float
+        Noise standard deviation in intensity units (images in [0, 1]: for
+        example ``25 / 255``); within the trained range [0, 55/255].
+    weights : str or pathlib.Path, optional
+        A weights file of a :class:`ResidualCNN` (from :func:`train_denoiser`);
+        default: the shipped weights.
+
+    Returns
+    -------
+    LearnedDenoiser
+        Differentiable; carries no facts (nothing is known about its
+        Lipschitz constant; measure it with the library's estimators).
+
+    Raises
+    ------
+    ValueError
+        If ``sigma`` is outside the trained range or the file holds another
+        architecture.
+
+    Notes
+    -----
+    ``D(y) = y - R([y, \sigma])`` with ``R`` a 12-layer, 32-channel
+    convolutional network (see :class:`ResidualCNN`). The training record
+    (images, time, held-out PSNR) is ``weights/record.json`` beside the
+    shipped file.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from pnpguard.phantoms import natural_image
+    >>> from pnpguard.learned import residual_cnn
+    >>> frame = natural_image("camera")[:64, :64]
+    >>> noisy = frame + 0.1 * np.random.default_rng(0).standard_normal(frame.shape)
+    >>> denoised = residual_cnn(0.1)(noisy)
+    >>> bool(np.mean((denoised - frame) ** 2) < np.mean((noisy - frame) ** 2))
+    True
+    """
+    path = Path(weights) if weights is not None else RESIDUAL_WEIGHTS
+    model, training = _load(path, "ResidualCNN")
+    sigma = _check_trained_sigma(sigma, training)
+    return LearnedDenoiser(model, name="residual CNN", sigma=sigma)
+
+
+def averaged_cnn(sigma: float, *, theta: float = 0.9, weights: str | Path | None = None) -> LearnedDenoiser:
+    r"""The shipped averaged CNN denoiser ``D = (1 - theta) I + theta N``.
+
+    The averagedness is proved on loading: the norm bound of every
+    convolution of ``N`` is recomputed from the stored weights, and the fact
+    "``D`` is theta-averaged" is attached (``verified=True``) only when their
+    product is at most 1.
+
+    Parameters
+    ----------
+    sigma : float
+        Noise standard deviation in intensity units, within the trained range.
+    theta : float, optional
+        Averagedness constant, within the trained range (shipped: [0.5, 0.95]).
+    weights : str or pathlib.Path, optional
+        A weights file of an :class:`AveragedCNN`; default: the shipped weights.
+
+    Returns
+    -------
+    LearnedDenoiser
+        Differentiable, with a verified ``Fact(kind="averaged")`` when the
+        bound holds; without it (and with a :class:`UserWarning`) otherwise.
+
+    Raises
+    ------
+    ValueError
+        If ``sigma`` or ``theta`` is outside the trained range, or the file
+        holds another architecture.
+
+    Notes
+    -----
+    With :math:`L_N = \prod_l \|W_l\|` (each bound valid for every image size,
+    see :func:`conv_norm_bound`) and 1-Lipschitz MaxMin activations, ``N`` is
+    :math:`L_N`-Lipschitz. If :math:`L_N \le 1`, ``D`` is theta-averaged by
+    definition (Combettes & Yamada 2015, Def. 1.1), ``D`` is
+    :math:`(1 - \theta + \theta L_N)`-Lipschitz and ``D - I = \theta (N - I)``
+    is :math:`\theta (1 + L_N)`-Lipschitz. These hold in exact arithmetic; the
+    float32 evaluation adds rounding of relative size about 1e-7.
+
+    References
+    ----------
+    .. [1] P. L. Combettes and I. Yamada, J. Math. Anal. Appl. 425 (2015)
+       55-70. doi:10.1016/j.jmaa.2014.11.044
+    .. [2] H. Sedghi, V. Gupta and P. M. Long, "The singular values of
+       convolutional layers", ICLR 2019.
+    """
+    path = Path(weights) if weights is not None else AVERAGED_WEIGHTS
+    model, training = _load(path, "AveragedCNN")
+    sigma = _check_trained_sigma(sigma, training)
+    if isinstance(theta, bool) or not isinstance(theta, (int, float)):
+        raise TypeError(f"`theta` must be a number, got {type(theta).__name__}")
+    low, high = model.theta_range
+    if not low <= theta <= high:
+        raise ValueError(f"`theta` = {theta!r} is outside the range the network was trained for, [{low:g}, {high:g}]")
+    return LearnedDenoiser(
+        model,
+        name=f"averaged CNN (theta={theta:g})",
+        sigma=sigma,
+        options={"theta": float(theta)},
+        facts=averaged_facts(model, float(theta)),
+    )
+
+
+def averaged_facts(model: AveragedCNN, theta: float) -> tuple[Fact, ...]:
+    """The verified averagedness fact of ``(1 - theta) I + theta N``, or nothing.
+
+    Returns an empty tuple, with a :class:`UserWarning`, when the recomputed
+    layer bounds do not prove that ``N`` is nonexpansive.
+    """
+    bounds = verified_layer_bounds(model)
+    listed = ", ".join(f"{b:.6f}" for b in bounds.bounds)
+    if not bounds.nonexpansive:
+        warnings.warn(
+            f"the layer norm bounds of the averaged network multiply to {bounds.lipschitz:.6g} > 1 "
+            f"(bounds: {listed}); no averagedness is claimed",
+            UserWarning,
+            stacklevel=3,
+        )
+        return ()
+    source = (
+        f"D = (1 - theta) I + theta N with N a convolutional network whose layer norm bounds, "
+        f"recomputed from the weights when loaded, are [{listed}] (exact circular norms on a "
+        f"{bounds.grid}x{bounds.grid} DFT grid, Sedghi, Gupta & Long, ICLR 2019, widened to every "
+        f"image size and zero padding by a Bernstein-inequality factor), product "
+        f"{bounds.lipschitz:.6f} <= 1, with 1-Lipschitz MaxMin activations: N is nonexpansive, so "
+        f"D is theta-averaged (Combettes & Yamada 2015, Def. 1.1)"
+    )
+    return (
+        Fact(
+            "averaged",
+            theta=theta,
+            lipschitz=1.0 - theta + theta * bounds.lipschitz,
+            residual_lipschitz=theta * (1.0 + bounds.lipschitz),
+            verified=True,
+            source=source,
+        ),
+    )
+
+
+def load_denoiser(
+    path: str | Path, sigma: float, *, theta: float | None = None
+) -> LearnedDenoiser:
+    """A denoiser from a weights file written by :func:`train_denoiser`.
+
+    Parameters
+    ----------
+    path : str or pathlib.Path
+        The weights file.
+    sigma : float
+        Noise level, within the range the network was trained on.
+    theta : float, optional
+        Required for an averaged network, not allowed for a residual one.
+
+    Returns
+    -------
+    LearnedDenoiser
+        As :func:`residual_cnn` or :func:`averaged_cnn` would build it.
+    """
+    model = load_network(path)
+    if isinstance(model, AveragedCNN):
+        if theta is None:
+            raise ValueError("`theta` is required for an averaged network")
+        return averaged_cnn(sigma, theta=theta, weights=path)
+    if theta is not None:
+        raise ValueError("`theta` applies to averaged networks only; this file holds a residual CNN")
+    return residual_cnn(sigma, weights=path)
+
+
+def module_denoiser(
+    module: nn.Module | Callable,
+    sigma: float,
+    *,
+    name: str,
+    claims: Iterable[ClaimLike] = (),
+) -> LearnedDenoiser:
+    """Wrap your own torch network ``module(noisy, sigma)`` like the shipped ones.
+
+    Parameters
+    ----------
+    module : torch.nn.Module
+        Called as ``module(noisy, sigma)`` with ``noisy`` a ``(N, C, H, W)``
+        tensor and ``sigma`` a float; returns a tensor of the same shape.
+    sigma : float
+        Noise level passed to the network.
+    name : str
+        Short name for reports.
+    claims : iterable, optional
+        What you know about the network (``"nonexpansive"``, ``("averaged",
+        theta)``, a Fact...). Recorded as unverified claims.
+
+    Returns
+    -------
+    LearnedDenoiser
+        Differentiable, dtype- and device-following wrapper.
+    """
+    facts = tuple(as_claim(claim) for claim in claims)
+    return LearnedDenoiser(module, name=name, sigma=sigma, facts=facts)

@@ -1,0 +1,277 @@
+"""Learned denoisers: shipped weights, layer-norm certificates, averagedness, training."""
+
+from __future__ import annotations
+
+import json
+import warnings
+
+import numpy as np
+import pytest
+import torch
+import torch.nn.functional as F
+
+from pnpguard.learned import (
+    AveragedCNN,
+    ResidualCNN,
+    averaged_cnn,
+    circular_conv_norm,
+    conv_norm_bound,
+    load_denoiser,
+    load_network,
+    module_denoiser,
+    residual_cnn,
+    train_denoiser,
+)
+from pnpguard.learned._averaged import dct_filters, reflected_shrink
+from pnpguard.learned._data import bundled_image
+from pnpguard.learned._denoisers import AVERAGED_WEIGHTS, RESIDUAL_WEIGHTS, WEIGHTS_DIR
+from pnpguard.learned._evaluate import noisy_copy, psnr_db
+from pnpguard.learned._lipschitz import circular_conv, circular_conv_adjoint
+from pnpguard.learned._weights import read_weights
+
+RECORD = json.loads((WEIGHTS_DIR / "record.json").read_text())
+
+
+# ------------------------------------------------------------------ helpers
+def dense_conv(weight: torch.Tensor, size: tuple[int, int], padding: str) -> np.ndarray:
+    """Matrix of a convolution layer on ``size`` images, column by column (float64)."""
+    c_in = weight.shape[1]
+    n = c_in * size[0] * size[1]
+    basis = torch.eye(n, dtype=torch.float64).reshape(n, c_in, *size)
+    if padding == "circular":
+        out = circular_conv(basis, weight.double())
+    else:
+        out = F.conv2d(basis, weight.double(), padding=weight.shape[-1] // 2)
+    return out.reshape(n, -1).T.numpy()
+
+
+def power_iteration_norm(apply, adjoint, shape, iterations: int = 500) -> float:
+    vector = torch.randn(shape, dtype=torch.float64, generator=torch.Generator().manual_seed(3))
+    for _ in range(iterations):
+        vector = adjoint(apply(vector))
+        vector = vector / vector.norm()
+    return float(apply(vector).norm())
+
+
+def averagedness_excess(denoise, x: torch.Tensor, y: torch.Tensor, theta: float) -> float:
+    """``||Dx - Dy||^2 + ((1 - theta)/theta) ||(I-D)x - (I-D)y||^2 - ||x - y||^2`` (<= 0 if averaged)."""
+    dx, dy = denoise(x), denoise(y)
+    a = x - y
+    r = (x - dx) - (y - dy)
+    return float((dx - dy).square().sum() + (1 - theta) / theta * r.square().sum() - a.square().sum())
+
+
+# ------------------------------------------------------------ shipped weights
+@pytest.mark.parametrize(
+    ("factory", "key", "options"),
+    [(residual_cnn, "residual", {}), (averaged_cnn, "averaged", {"theta": 0.9})],
+)
+def test_shipped_weights_reproduce_recorded_psnr(factory, key, options):
+    # The record was written by benchmarks/train_learned.py right after training.
+    entry = RECORD[key]
+    table = entry["held_out_psnr"] if key == "residual" else entry["held_out_psnr"]["theta=0.9"]
+    clean = bundled_image("camera")
+    sigma = 25 / 255
+    noisy = noisy_copy(clean, sigma, seed=0)
+    denoised = factory(sigma, **options)(noisy)
+    value = psnr_db(denoised, clean)
+    assert abs(value - table["camera"]["25"]) <= 0.3, (value, table["camera"]["25"])
+    assert value > psnr_db(noisy, clean) + 4.0  # it denoises
+
+
+def test_held_out_images_never_in_training_record():
+    for entry in RECORD.values():
+        assert not set(entry["held_out_images"]) & set(entry["training_images"])
+        assert not set(entry["validation_images"]) & set(entry["training_images"])
+
+
+def test_weights_are_plain_tensors_and_files_with_objects_are_refused(tmp_path):
+    payload = read_weights(RESIDUAL_WEIGHTS)
+    assert all(isinstance(t, torch.Tensor) for t in payload["state_dict"].values())
+    bad = tmp_path / "bad.pt"
+    torch.save({"format": "pnpguard-weights", "format_version": 1, "object": np.random.default_rng(0)}, bad)
+    with pytest.raises(Exception, match="(?i)weights_only|unpickl|global"):
+        read_weights(bad)
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_layouts_dtypes_and_kinds_are_preserved(dtype):
+    denoiser = residual_cnn(0.1)
+    image = bundled_image("camera")[:32, :40].astype(dtype)
+    out = denoiser(image)
+    assert isinstance(out, np.ndarray) and out.dtype == dtype and out.shape == image.shape
+    batch = torch.from_numpy(np.stack([image, image[::-1].copy()])[:, None]).repeat(1, 2, 1, 1)
+    out_t = denoiser(batch)
+    assert isinstance(out_t, torch.Tensor) and out_t.dtype == batch.dtype and out_t.shape == batch.shape
+    # channels are denoised separately: each channel equals the 2-D result
+    np.testing.assert_allclose(out_t[0, 1].numpy(), out, rtol=1e-5, atol=1e-5)
+    assert np.array_equal(batch[0, 0].numpy(), image)  # input untouched
+
+
+def test_sigma_and_theta_outside_trained_range_are_refused():
+    with pytest.raises(ValueError, match="sigma"):
+        residual_cnn(0.5)
+    with pytest.raises(ValueError, match="theta"):
+        averaged_cnn(0.1, theta=0.3)
+
+
+# ---------------------------------------------------------- norm certificates
+def test_fft_norm_matches_dense_svd_and_power_iteration():
+    generator = torch.Generator().manual_seed(0)
+    weight = torch.randn(2, 2, 3, 3, dtype=torch.float64, generator=generator)
+    for size in [(6, 6), (5, 7), (2, 3)]:
+        dense = np.linalg.svd(dense_conv(weight, size, "circular"), compute_uv=False)[0]  # numpy.linalg.svd
+        assert circular_conv_norm(weight, size) == pytest.approx(dense, rel=1e-10)
+    power = power_iteration_norm(
+        lambda v: circular_conv(v, weight), lambda u: circular_conv_adjoint(u, weight), (1, 2, 16, 16), 2000
+    )
+    assert circular_conv_norm(weight, (16, 16)) == pytest.approx(power, rel=1e-6)
+
+
+def test_size_independent_bound_holds_and_is_tight():
+    generator = torch.Generator().manual_seed(1)
+    weight = torch.randn(3, 2, 3, 3, dtype=torch.float64, generator=generator)
+    bound = conv_norm_bound(weight)
+    circular = [circular_conv_norm(weight, (h, w)) for h in range(1, 40, 3) for w in (h, h + 1, 2 * h + 5)]
+    zero_padded = [np.linalg.svd(dense_conv(weight, (h, w), "zero"), compute_uv=False)[0] for h, w in [(3, 3), (5, 8), (9, 9)]]
+    assert max(circular + zero_padded) <= bound
+    # not loose: within the Bernstein factor 1/(1 - 4 pi^2 / 32768) of the 128x128 norm
+    assert bound <= circular_conv_norm(weight, (128, 128)) * 1.00121
+
+
+def test_shipped_averaged_layers_agree_with_power_iteration_on_the_layer():
+    model = load_network(AVERAGED_WEIGHTS).double()
+    weight = model.convs[1].weight.detach()
+    size = (1, weight.shape[1], 12, 12)
+    exact = circular_conv_norm(weight, (12, 12))
+    power = power_iteration_norm(
+        lambda v: circular_conv(v, weight), lambda u: circular_conv_adjoint(u, weight), size, 2000
+    )
+    # power iteration approaches the norm from below
+    assert exact * (1 - 1e-4) <= power <= exact * (1 + 1e-12)
+    # the layer as used (zero padding) stays below the certified all-sizes bound
+    zero_padded = power_iteration_norm(
+        lambda v: F.conv2d(v, weight, padding=1), lambda u: F.conv_transpose2d(u, weight, padding=1), size, 500
+    )
+    assert zero_padded <= conv_norm_bound(weight) <= 1.0
+
+
+# ---------------------------------------------------------------- averagedness
+def test_expansive_map_fails_the_pair_inequality():
+    # sanity check of the helper: 1.1 I is expansive, hence not averaged for any theta
+    x, y = torch.zeros(4, 4, dtype=torch.float64), torch.ones(4, 4, dtype=torch.float64)
+    assert averagedness_excess(lambda t: 1.1 * t, x, y, 0.9) > 0
+
+
+@pytest.mark.parametrize("theta", [0.5, 0.9])
+def test_shipped_averaged_denoiser_is_verified_and_pairs_obey_the_inequality(theta):
+    denoiser = averaged_cnn(20 / 255, theta=theta)
+    (fact,) = denoiser.facts
+    assert fact.kind == "averaged" and fact.verified and fact.theta == theta
+    assert fact.residual_lipschitz <= 2 * theta
+    generator = torch.Generator().manual_seed(int(100 * theta))
+    clean = torch.from_numpy(bundled_image("camera")[200:232, 200:232]).double()
+    worst = -np.inf
+    for scale in (1e-3, 0.05, 0.5):
+        for _ in range(4):
+            x = clean + 0.1 * torch.randn(clean.shape, dtype=torch.float64, generator=generator)
+            y = x + scale * torch.randn(clean.shape, dtype=torch.float64, generator=generator)
+            excess = averagedness_excess(denoiser.apply, x, y, theta)
+            worst = max(worst, excess / float((x - y).square().sum()))
+    assert worst <= 1e-9
+
+
+def test_tampered_weights_lose_the_averagedness_claim(tmp_path):
+    payload = read_weights(AVERAGED_WEIGHTS)
+    state = dict(payload["state_dict"])
+    key = "convs.2.weight"
+    state[key] = state[key] * 1.5
+    tampered = tmp_path / "tampered.pt"
+    torch.save({**payload, "state_dict": state}, tampered)
+    with pytest.warns(UserWarning, match="no averagedness is claimed"):
+        denoiser = averaged_cnn(0.1, theta=0.9, weights=tampered)
+    assert denoiser.facts == ()
+    # shrinking a layer keeps the proof
+    state[key] = payload["state_dict"][key] * 0.5
+    torch.save({**payload, "state_dict": state}, tampered)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        assert averaged_cnn(0.1, theta=0.9, weights=tampered).facts[0].verified
+
+
+# -------------------------------------------------------------------- training
+@pytest.mark.parametrize("architecture", ["residual", "averaged"])
+def test_training_reduces_loss_and_saves_loadable_weights(tmp_path, architecture):
+    image = bundled_image("camera")[100:164, 100:164]
+    settings = {
+        "architecture": architecture,
+        "noise_range": (0.05, 0.15),
+        "steps": 40,
+        "depth": 3,
+        "width": 10,
+        "patch_size": 24,
+        "batch_size": 8,
+        "learning_rate": 3e-3,
+        "validate_every": 20,
+        "progress": False,
+        "seed": 0,
+    }
+    report = train_denoiser([image], save_to=tmp_path / "mine.pt", **settings)
+    assert report.steps == 40 and len(report.losses) == 2
+    assert report.losses[-1] < report.losses[0]
+    options = {"theta": 0.75} if architecture == "averaged" else {}
+    denoiser = load_denoiser(report.path, 0.1, **options)
+    assert denoiser(image).shape == image.shape
+    if architecture == "averaged":
+        assert denoiser.facts[0].verified
+    again = train_denoiser([image], **settings)
+    for (name, first), second in zip(report.model.state_dict().items(), again.model.state_dict().values()):
+        assert torch.equal(first, second), name  # seeded: identical weights
+
+
+def test_training_rejects_bad_input():
+    with pytest.raises(ValueError, match="budget"):
+        train_denoiser([np.zeros((64, 64))])
+    with pytest.raises(TypeError, match="images"):
+        train_denoiser([np.zeros((64, 64), dtype=np.uint8)], steps=1)
+    with pytest.raises(ValueError, match="architecture"):
+        train_denoiser([np.zeros((64, 64))], steps=1, architecture="unet")
+
+
+def test_module_denoiser_wraps_a_network_with_unverified_claims():
+    network = ResidualCNN(depth=2, width=4)
+    denoiser = module_denoiser(network, 0.1, name="mine", claims=["nonexpansive"])
+    assert denoiser.differentiable and not denoiser.facts[0].verified
+    image = torch.rand(1, 1, 8, 8)
+    expected = network(image, 0.1)
+    torch.testing.assert_close(denoiser(image), expected.detach())
+
+
+def test_reflected_shrink_is_one_lipschitz_exactly_for_slopes_up_to_two():
+    generator = torch.Generator().manual_seed(5)
+    z1 = torch.randn(64, 6, 1, 1, dtype=torch.float64, generator=generator)
+    z2 = z1 + 0.01 * torch.randn(z1.shape, dtype=torch.float64, generator=generator)
+    threshold = torch.full((64, 6), 0.5, dtype=torch.float64)
+    for beta, admissible in ((0.0, True), (1.0, True), (2.0, True), (2.5, False)):
+        slope = torch.full((64, 6), beta, dtype=torch.float64)
+        ratio = (reflected_shrink(z1, threshold, slope) - reflected_shrink(z2, threshold, slope)).abs() / (z1 - z2).abs()
+        assert (ratio.max() <= 1 + 1e-12) == admissible, beta
+
+
+def test_dct_frame_matches_scipy_and_is_parseval():
+    from scipy.fft import dctn  # reference: scipy's orthonormal DCT-II
+
+    filters = dct_filters(3)
+    patch = np.random.default_rng(0).standard_normal((3, 3))
+    coefficients = np.einsum("kab,ab->k", filters.numpy(), patch)
+    np.testing.assert_allclose(np.sort(np.abs(coefficients)), np.sort(np.abs(dctn(patch, norm="ortho").ravel())), atol=1e-12)
+    # Parseval as a convolution frame after scaling by 1/3: the stacked filters have norm 1
+    assert circular_conv_norm((filters / 3)[:, None], (16, 16)) == pytest.approx(1.0, abs=1e-12)
+
+
+def test_fresh_averaged_network_is_verified_after_finishing():
+    model = AveragedCNN(depth=3, width=10)
+    model.convs[1].weight.data *= 3.0  # deliberately too large
+    assert not model.layer_bounds().nonexpansive
+    model.finish_normalised_training()
+    assert model.layer_bounds().nonexpansive
