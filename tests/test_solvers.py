@@ -284,3 +284,13 @@ def test_a_map_without_fixed_point_stalls_and_the_policy_stops_it():
     result = pg.forward_backward(fidelity, shift, guard=False, policy=policy, max_iter=1000, progress=True)
     assert not result.converged and result.iterations < 100
     assert result.flags[-1].kind == "stall" and "stopped by the monitor" in result.message
+
+
+def test_non_finite_values_stop_the_run_even_under_a_warn_policy():
+    op = pg.PixelMask(np.ones(SHAPE))
+    fidelity = pg.LeastSquares(op, RNG.random(SHAPE))
+    poison = pg.as_denoiser(lambda z: z if bool((z.abs() < 5).all()) else z * float("inf"), name="poison", backend="torch")
+    policy = pg.Policy(blow_up="warn", blowup_ratio=1e9)
+    result = pg.forward_backward(fidelity, poison, guard=False, step=3.0, x0=RNG.random(SHAPE), policy=policy, max_iter=200)
+    assert np.isfinite(result.x).all()
+    assert result.flags[-1].kind == "blow_up" and "stopped by the monitor" in result.message

@@ -16,7 +16,7 @@ from ..denoisers import as_denoiser
 from ..fidelity import LeastSquares
 from ..guarantee import DEFAULT_MARGIN, Guarantee, admissible
 from ..metrics import psnr, ssim
-from ._monitor import Flag, Monitor, Policy
+from ._monitor import Flag, Monitor, Policy, norm
 from ._result import IterationState, Reconstruction
 from ._schemes import DouglasRachford, ForwardBackward
 
@@ -117,7 +117,7 @@ class _Run:
         start = start_from(self.x0, self.step)
         o = self.options
         certified = (None, math.nan) if guarantee is None else guarantee.map_constant(self.step, self.relaxation)
-        scale = max(float(torch.linalg.vector_norm(start.double())), float(torch.linalg.vector_norm(self.fidelity.y.double())), 1e-12)
+        scale = max(norm(start), norm(self.fidelity.y), 1e-12)
         monitor = Monitor(self.policy, certified[0], certified[1], scale)
         relaxation = self.relaxation
         flags: list[Flag] = []
@@ -128,14 +128,21 @@ class _Run:
         back_offs, converged, message = 0, False, "reached max_iter"
         bar = _progress(o["progress"], o["max_iter"], self.algorithm)
         begin = time.perf_counter()
+        size = norm(start)
         for iteration in range(o["max_iter"]):
             image, candidate_estimate = scheme(v)
             step = relaxation * (image - v)
             candidate = v + step
-            blow = monitor.blow_up(iteration, candidate)
-            new_flags = [blow] if blow is not None else monitor.observe(iteration, v, step)
+            blow, candidate_size = monitor.blow_up(iteration, candidate)
+            step_norm = norm(step)
+            if blow is None:
+                new_flags = monitor.observe(iteration, v, size, step, step_norm)
+            else:
+                new_flags = [blow]
             flags += new_flags
             action = _strongest(new_flags)
+            if action == "warn" and not math.isfinite(candidate_size):
+                action = "stop"  # a non-finite iterate never enters the run, whatever the policy
             if action == "stop":
                 message = f"stopped by the monitor at iteration {iteration}: {new_flags[0].message}"
                 break
@@ -147,10 +154,10 @@ class _Run:
                 relaxation *= 0.5
                 monitor.certify(*(_recertify(guarantee, self.step, relaxation)))
                 continue
-            residual = float(torch.linalg.vector_norm((image - v).double()))
-            size = max(float(torch.linalg.vector_norm(v.double())), 1e-300)
+            residual = step_norm / relaxation
             residuals.append(residual)
-            relative.append(residual / size)
+            relative.append(residual / max(size, 1e-300))
+            size = candidate_size
             v, estimate = candidate, candidate_estimate
             if self.reference is not None:
                 metrics["psnr"].append(psnr(estimate, self.reference, data_range=self.data_range))

@@ -41,8 +41,8 @@ class Policy:
     Parameters
     ----------
     assumption_broken, residual_increase, stall, blow_up : {"warn", "stop", "back_off"}
-        ``"warn"`` records and continues; ``"stop"`` returns the last good
-        iterate; ``"back_off"`` restarts from the last good iterate with half
+        ``"warn"`` records and continues (except on non-finite values, which
+        always stop the run); ``"stop"`` returns the last good iterate; ``"back_off"`` restarts from the last good iterate with half
         the relaxation (recorded), at most ``max_back_offs`` times, then stops.
     increase_rtol : float
         Relative rise of the residual tolerated before ``residual_increase``.
@@ -114,8 +114,9 @@ class Flag:
     value: float = math.nan
 
 
-def _norm(t: torch.Tensor) -> float:
-    return float(torch.linalg.vector_norm(t.double()))
+def norm(t: torch.Tensor) -> float:
+    """Euclidean norm of a whole tensor, accumulated in its own dtype."""
+    return float(torch.linalg.vector_norm(t))
 
 
 @dataclass
@@ -149,36 +150,35 @@ class Monitor:
         self._previous_step = None
         self._previous_point = None
 
-    def blow_up(self, iteration: int, candidate: torch.Tensor) -> Flag | None:
-        """Flag non-finite or runaway values in a candidate iterate."""
-        if not bool(torch.isfinite(candidate).all()):
+    def blow_up(self, iteration: int, candidate: torch.Tensor) -> tuple[Flag | None, float]:
+        """Flag non-finite or runaway values in a candidate iterate; also return its norm."""
+        size = norm(candidate)
+        if not math.isfinite(size):
             bad = int((~torch.isfinite(candidate)).sum())
-            return self._flag("blow_up", iteration, f"{bad} non-finite values in the next iterate", math.nan)
-        size = _norm(candidate)
+            if bad:
+                message = f"{bad} non-finite values in the next iterate"
+                return self._flag("blow_up", iteration, message, math.nan), size
         bound = self.policy.blowup_ratio * self.scale
         if size > bound:
-            return self._flag(
-                "blow_up", iteration, f"iterate norm {size:.3g} exceeds the bound {bound:.3g}", size
-            )
-        return None
+            message = f"iterate norm {size:.3g} exceeds the bound {bound:.3g}"
+            return self._flag("blow_up", iteration, message, size), size
+        return None, size
 
-    def observe(self, iteration: int, point: torch.Tensor, step: torch.Tensor) -> list[Flag]:
-        """Record the step ``d_k = v_{k+1} - v_k`` taken from ``v_k = point``."""
-        residual = _norm(step)
+    def observe(
+        self, iteration: int, point: torch.Tensor, point_norm: float, step: torch.Tensor, residual: float
+    ) -> list[Flag]:
+        """Record the step ``d_k = v_{k+1} - v_k`` (norm ``residual``) taken from ``v_k = point``."""
         flags = []
         if self._previous_step is not None:
-            flags += self._compare(iteration, point, step, residual)
+            allowance = ROUNDING_FACTOR * torch.finfo(point.dtype).eps * 2.0 * point_norm
+            flags += self._compare(iteration, point, step, residual, allowance)
         self.residuals.append(residual)
         flags += self._stall(iteration)
         self._previous_step, self._previous_point = step, point
         return flags
 
-    def _allowance(self, point: torch.Tensor) -> float:
-        return ROUNDING_FACTOR * torch.finfo(point.dtype).eps * 2.0 * _norm(point)
-
-    def _compare(self, iteration, point, step, residual) -> list[Flag]:
+    def _compare(self, iteration, point, step, residual, allowance) -> list[Flag]:
         previous, before = self._previous_step, self.residuals[-1]
-        allowance = self._allowance(point)
         flags = []
         witness = (self._previous_point, point)
         if residual > before * (1.0 + self.policy.increase_rtol) + allowance:
@@ -197,9 +197,10 @@ class Monitor:
         if self.map_kind is None:
             return flags
         if self.map_kind == "averaged":
-            r = (step - previous).double()
-            inner = before**2 - float(torch.sum(previous.double() * step.double()))
-            r_norm = _norm(r)
+            # a = -d_(k-1) and r = d_k - d_(k-1), so <a, r> = -<d_(k-1), r> (no cancellation).
+            r = step - previous
+            inner = -float(torch.vdot(previous.reshape(-1), r.reshape(-1)))
+            r_norm = norm(r)
             if r_norm**2 > 1000.0 * allowance * before and r_norm > 0:
                 statistic = math.inf if inner <= 0 else r_norm**2 / (2.0 * inner)
                 if statistic > self.constant + 1e-6:
