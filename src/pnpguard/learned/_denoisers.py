@@ -245,7 +245,7 @@ def averaged_cnn(sigma: float, *, theta: float = 0.9, weights: str | Path | None
     Notes
     -----
     With :math:`L_N = \prod_l \|W_l\|` (each bound valid for every image size,
-    see :func:`conv_norm_bound`) and 1-Lipschitz MaxMin activations, ``N`` is
+    see :func:`conv_norm_bound`) and 1-Lipschitz activations, ``N`` is
     :math:`L_N`-Lipschitz. If :math:`L_N \le 1`, ``D`` is theta-averaged by
     definition (Combettes & Yamada 2015, Def. 1.1), ``D`` is
     :math:`(1 - \theta + \theta L_N)`-Lipschitz and ``D - I = \theta (N - I)``
@@ -297,7 +297,7 @@ def averaged_facts(model: AveragedCNN, theta: float) -> tuple[Fact, ...]:
         f"recomputed from the weights when loaded, are [{listed}] (exact circular norms on a "
         f"{bounds.grid}x{bounds.grid} DFT grid, Sedghi, Gupta & Long, ICLR 2019, widened to every "
         f"image size and zero padding by a Bernstein-inequality factor), product "
-        f"{bounds.lipschitz:.6f} <= 1, with 1-Lipschitz MaxMin activations: N is nonexpansive, so "
+        f"{bounds.lipschitz:.6f} <= 1, with 1-Lipschitz activations z - beta clip(z, -t, t), 0 <= beta <= 2: N is nonexpansive, so "
         f"D is theta-averaged (Combettes & Yamada 2015, Def. 1.1)"
     )
     return (
