@@ -294,3 +294,45 @@ def test_non_finite_values_stop_the_run_even_under_a_warn_policy():
     result = pg.forward_backward(fidelity, poison, guard=False, step=3.0, x0=RNG.random(SHAPE), policy=policy, max_iter=200)
     assert np.isfinite(result.x).all()
     assert result.flags[-1].kind == "blow_up" and "stopped by the monitor" in result.message
+
+
+def test_tv_deblurring_fixed_points_agree_across_fb_dr_and_admm():
+    # The TV prox makes the three fixed points minimisers of one strictly convex problem
+    # f + (w / eta) TV (mu > 0 here) when the prox parameter equals the FB step; they agree up
+    # to the inexactness of the TV solves.
+    truth = pg.phantoms.shepp_logan(16)
+    op = pg.Convolution(pg.gaussian_psf(3, 0.5), truth.shape)
+    y = op(truth) + 0.02 * RNG.standard_normal(truth.shape)
+    fidelity = pg.LeastSquares(op, y, sigma=0.05)
+    tv = pg.TotalVariation(weight=0.002, tol=1e-5, max_iter=20000)
+    eta = 1.0 / fidelity.lipschitz
+    report = pg.check_denoiser(tv, y)
+    results = [
+        solver(fidelity, tv, report=report, step=eta, max_iter=3000, tol=1e-5)
+        for solver in (pg.forward_backward, pg.douglas_rachford, pg.admm)
+    ]
+    assert report.verdict == "proved" and all(r.converged and not r.flags for r in results), [r.flags for r in results]
+    assert_close(results[1].x, results[0].x, rtol=0, atol=2e-3, what="TV: DR vs FB")
+    assert_close(results[2].x, results[0].x, rtol=0, atol=2e-3, what="TV: ADMM vs FB")
+
+
+def test_an_optimistic_estimate_is_caught_by_the_monitor_with_a_witness():
+    op, _, y = _blur_problem()
+    fidelity = pg.LeastSquares(op, y, sigma=0.2)
+    denoiser = _LinearFilter(0.225)  # spectrum [-0.8, 1]: theta = 0.9 in truth
+    optimistic = pg.CheckReport(
+        denoiser=denoiser.name, theta=0.3, lipschitz=1.0, residual_lipschitz=0.6,
+        verdict="estimated", refuted=None, witnesses={}, calls=0, seconds=0.0, method="a lucky search",
+    )
+    result = pg.forward_backward(fidelity, denoiser, report=optimistic, x0=RNG.standard_normal(SHAPE), max_iter=50)
+    broken = [flag for flag in result.flags if flag.kind == "assumption_broken"]
+    assert broken and broken[0].value > result.guarantee.constant
+    first, second = broken[0].witness
+    # Reproduce: the pair (v, T v) of consecutive iterates violates the certified averagedness
+    # of T = D (I - eta grad f) (THEORY.md section 1, pairwise statistic).
+    t = lambda v: denoiser.apply(v - result.step * fidelity._grad(v))  # noqa: E731
+    a = first - second
+    r = a - (t(first) - t(second))
+    statistic = float(torch.sum(r * r) / (2 * torch.sum(a * r)))
+    assert statistic == pytest.approx(broken[0].value, rel=1e-6)
+    assert statistic > result.guarantee.constant

@@ -118,7 +118,12 @@ class _Run:
         o = self.options
         certified = (None, math.nan) if guarantee is None else guarantee.map_constant(self.step, self.relaxation)
         scale = max(norm(start), norm(self.fidelity.y), 1e-12)
-        monitor = Monitor(self.policy, certified[0], certified[1], scale)
+        # An inexact denoiser (RMS error <= tol per pixel per call) moves T v by at most
+        # tol sqrt(N) per evaluation; T uses up to three evaluations' worth (Douglas-Rachford),
+        # and two consecutive steps enter each comparison.
+        tolerance = 0.0 if report is None else report.tolerance
+        inexactness = 6.0 * self.relaxation * tolerance * math.sqrt(start.numel())
+        monitor = Monitor(self.policy, certified[0], certified[1], scale, inexactness)
         relaxation = self.relaxation
         flags: list[Flag] = []
         residuals: list[float] = []

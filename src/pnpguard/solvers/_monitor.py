@@ -134,12 +134,18 @@ class Monitor:
         The certified averagedness constant or contraction factor.
     scale : float
         Reference norm for the blow-up bound.
+    inexactness : float
+        Absolute error allowed in each step ``d_k`` because the denoiser is
+        computed inexactly (an iterative prox with a stated tolerance); added
+        to the rounding allowance, so that evaluation errors the guarantee
+        already admits are not reported as broken assumptions.
     """
 
     policy: Policy
     map_kind: str | None
     constant: float
     scale: float
+    inexactness: float = 0.0
     residuals: list[float] = field(default_factory=list)
     _previous_step: torch.Tensor | None = None
     _previous_point: torch.Tensor | None = None
@@ -170,7 +176,7 @@ class Monitor:
         """Record the step ``d_k = v_{k+1} - v_k`` (norm ``residual``) taken from ``v_k = point``."""
         flags = []
         if self._previous_step is not None:
-            allowance = ROUNDING_FACTOR * torch.finfo(point.dtype).eps * 2.0 * point_norm
+            allowance = ROUNDING_FACTOR * torch.finfo(point.dtype).eps * 2.0 * point_norm + self.inexactness
             flags += self._compare(iteration, point, step, residual, allowance)
         self.residuals.append(residual)
         flags += self._stall(iteration)
