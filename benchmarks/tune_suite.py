@@ -27,7 +27,8 @@ Usage::
     python benchmarks/tune_suite.py --tasks superres-x2   # update some tasks
     python benchmarks/tune_suite.py --denoisers nlm       # update some denoisers
 
-Existing entries of other tasks / denoisers are kept (``--fresh`` starts over).
+Existing entries of other tasks / denoisers are kept (``--fresh`` starts over);
+the file's ``runs`` list records every invocation (time, commit, what it tuned).
 """
 
 from __future__ import annotations
@@ -160,9 +161,21 @@ def main() -> None:
     if data is None or data.get("format_version") != FORMAT_VERSION:
         data = {"format": FORMAT, "format_version": FORMAT_VERSION, "tasks": {}}
     env = environment(args.threads)
+    created = datetime.now(timezone.utc).isoformat(timespec="seconds")
+    # Every invocation is recorded: entries tuned by earlier runs are kept.
+    data.setdefault("runs", []).append(
+        {
+            "created": created,
+            "git_commit": env["git_commit"],
+            "tasks": list(args.tasks),
+            "denoisers": denoisers,
+            "baselines": tune_baselines,
+            "machine": f"{env['platform']}, {env['cpu_count']} CPUs, {args.threads} torch thread(s)",
+        }
+    )
     data.update(
         made_by="benchmarks/tune_suite.py",
-        created=datetime.now(timezone.utc).isoformat(timespec="seconds"),
+        created=created,
         git_commit=env["git_commit"],
         how=(
             f"tuned at {SHAPE[0]}x{SHAPE[1]} on each task's tuning phantom and seed (not the "
@@ -171,7 +184,6 @@ def main() -> None:
             f"{MAX_ITER}, tol {TOL:g}, check budget {CHECK_BUDGET}; baselines: exhaustive small "
             "grids; criterion PSNR (data range 1)"
         ),
-        environment=env,
     )
     begin = time.perf_counter()
     for name in args.tasks:

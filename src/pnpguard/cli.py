@@ -486,6 +486,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print(f"{PROG}: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:
+        # The reader of our output went away (e.g. `| head`): stop quietly. Python's
+        # signal documentation, "Note on SIGPIPE", recommends pointing stdout at devnull.
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 1
 
 
 if __name__ == "__main__":

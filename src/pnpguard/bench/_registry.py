@@ -20,6 +20,7 @@ from ..denoisers import (
     TotalVariation,
     WaveletShrinkage,
 )
+from ..learned import averaged_cnn, residual_cnn
 
 Shape = tuple[int, int]
 
@@ -105,6 +106,33 @@ _REGISTRY: dict[str, ShippedDenoiser] = {
             _STRENGTH_GRID,
             "black box",
             lambda s, shape: NonLocalMeans(sigma=s, name="nlm"),
+        ),
+        ShippedDenoiser(
+            "residual-cnn",
+            "DnCNN-style residual CNN with a noise-level input (shipped weights; no known facts)",
+            "noise level",
+            0.02,
+            _STRENGTH_GRID,
+            "black box",
+            lambda s, shape: residual_cnn(s),
+        ),
+        ShippedDenoiser(
+            "averaged-cnn",
+            "CNN averaged by construction, theta = 0.9 (layer norms re-proved on loading)",
+            "noise level",
+            0.02,
+            _STRENGTH_GRID,
+            "proved",
+            lambda s, shape: averaged_cnn(s, theta=0.9),
+        ),
+        ShippedDenoiser(
+            "averaged-cnn-firm",
+            "the same CNN at theta = 0.5: firmly nonexpansive, so Douglas-Rachford and ADMM apply",
+            "noise level",
+            0.02,
+            _STRENGTH_GRID,
+            "proved",
+            lambda s, shape: averaged_cnn(s, theta=0.5),
         ),
     )
 }
