@@ -250,3 +250,9 @@ def test_non_local_means_is_a_black_box():
     report = pg.check_denoiser(pg.NonLocalMeans(sigma=0.05), SAMPLE, budget=60)
     assert report.verdict in ("estimated", "refuted")
     assert not report.facts
+
+
+def test_an_identity_like_denoiser_is_reported_as_such():
+    report = pg.check_denoiser(pg.as_denoiser(lambda z: z.clone(), name="identity"), SAMPLE, budget=40)
+    assert report.theta == 0.0 and report.verdict == "estimated"
+    assert any("identity up to rounding" in note for note in report.notes)

@@ -155,6 +155,11 @@ def check_denoiser(
         else "derivative-free (1+1)-ES ascent"
     )
     notes = list(_claim_notes(claims, values))
+    if not search.informative_found and not search.expansive_found:
+        notes.append(
+            "on every probed pair the denoiser acted as the identity up to rounding: theta = 0 "
+            "says only that; the denoiser may be too weak to do anything at this strength"
+        )
     if structure is not None:
         return _cross_checked(denoiser, structure, search, witnesses, values, claims, seconds, method, notes)
     refuted = None

@@ -152,6 +152,7 @@ class PairSearch:
         self.generator = generator
         self.best = {name: Best() for name in QUANTITIES}
         self.expansive_found = False
+        self.informative_found = False
         self.samples = samples
         self.sample_outputs = [self._evaluate(x) for x in samples]
 
@@ -177,6 +178,7 @@ class PairSearch:
 
     def _record(self, x: torch.Tensor, ys: torch.Tensor, stats: PairStatistics) -> None:
         self.expansive_found |= bool(stats.expansive.any())
+        self.informative_found |= bool(stats.informative.any())
         for name, values in zip(QUANTITIES, (stats.theta, stats.lipschitz, stats.residual)):
             k = int(torch.argmax(values))
             value = float(values[k])
