@@ -19,6 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import phantoms
+from ._caution import CAUTION
 from .check import CheckReport, check_denoiser
 from .denoisers import NonLocalMeans, TotalVariation
 from .fidelity import LeastSquares
@@ -26,13 +27,6 @@ from .guarantee import Refused
 from .metrics import psnr
 from .operators import Convolution, gaussian_psf
 from .solvers import Reconstruction, admm, forward_backward
-
-CAUTION = (
-    "Caution: a convergence guarantee is not a correctness guarantee. Learned or "
-    "black-box priors can hallucinate structure; where a reconstruction could inform "
-    "decisions about people (e.g. medical scans), clinical use follows local "
-    "regulations and licensed practice."
-)
 
 
 @dataclass(frozen=True)

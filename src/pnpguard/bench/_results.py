@@ -45,17 +45,13 @@ from typing import Any
 
 import numpy as np
 
+from .._caution import CAUTION  # noqa: F401  (re-exported: shown with tomography results)
+
 FORMAT = "pnpguard-benchmark-results"
 FORMAT_VERSION = 1
 
 _RECORD_KEYS = ("task", "method", "kind", "status", "psnr", "ssim", "check", "guarantee", "flags")
 
-#: Shown wherever tomography results are reported.
-CAUTION = (
-    "Caution: a convergence guarantee is not a correctness guarantee; learned priors can "
-    "hallucinate structure that is not in the object; any clinical use follows local "
-    "regulations and licensed practice."
-)
 
 
 def finite_or_none(value: Any) -> float | None:
