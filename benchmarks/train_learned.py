@@ -42,8 +42,25 @@ WEIGHTS = Path(__file__).resolve().parents[1] / "src" / "pnpguard" / "learned" /
 
 #: Settings of the shipped runs.
 RUNS = {
-    "residual": {"steps": 3000, "batch_size": 32, "depth": 12, "width": 32, "file": "residual_cnn.pt"},
-    "averaged": {"steps": 2400, "batch_size": 16, "depth": 8, "width": 32, "file": "averaged_cnn.pt"},
+    "residual": {
+        "steps": 9000,
+        "batch_size": 16,
+        "patch_size": 64,
+        "depth": 15,
+        "width": 64,
+        "unshuffle": 2,
+        "low_contrast": 0.25,
+        "file": "residual_cnn.pt",
+    },
+    "averaged": {
+        "steps": 6000,
+        "batch_size": 16,
+        "patch_size": 40,
+        "depth": 8,
+        "width": 32,
+        "low_contrast": 0.25,
+        "file": "averaged_cnn.pt",
+    },
 }
 THETAS = (0.5, 0.75, 0.9)
 
@@ -77,6 +94,9 @@ def main() -> None:
         steps=steps,
         depth=run["depth"],
         width=run["width"],
+        unshuffle=run.get("unshuffle"),
+        patch_size=run["patch_size"],
+        low_contrast=run["low_contrast"],
         batch_size=run["batch_size"],
         validation_images=validation,
         validate_every=250,

@@ -23,7 +23,7 @@ from pnpguard.learned import (
     train_denoiser,
 )
 from pnpguard.learned._averaged import dct_filters, reflected_shrink
-from pnpguard.learned._data import bundled_image
+from pnpguard.learned._data import PatchSampler, bundled_image
 from pnpguard.learned._denoisers import AVERAGED_WEIGHTS, RESIDUAL_WEIGHTS, WEIGHTS_DIR
 from pnpguard.learned._evaluate import noisy_copy, psnr_db
 from pnpguard.learned._lipschitz import circular_conv, circular_conv_adjoint
@@ -181,6 +181,41 @@ def test_shipped_averaged_denoiser_is_verified_and_pairs_obey_the_inequality(the
     assert worst <= 1e-9
 
 
+def test_averaged_network_keeps_the_mean_and_commutes_with_brightness_shifts():
+    # N = P + (I - P) M (I - P): (I - P)(y + c) = (I - P) y for a constant c, so
+    # N(y + c) = N(y) + c and the mean of D(y) is the mean of y, whatever M is.
+    torch.manual_seed(5)
+    network = AveragedCNN(depth=3, width=10).double()
+    with torch.no_grad():
+        for conv in network.convs:
+            conv.weight.normal_(0.0, 0.3)
+        network.condition[-1].bias.normal_(0.0, 1.0)
+    image = torch.rand(2, 1, 12, 15, dtype=torch.float64)
+    with torch.no_grad():
+        out = network(image, 0.1, 0.8)
+        shifted = network(image + 0.37, 0.1, 0.8)
+    torch.testing.assert_close(shifted, out + 0.37, rtol=0, atol=1e-12)
+    torch.testing.assert_close(out.mean(dim=(-2, -1)), image.mean(dim=(-2, -1)), rtol=0, atol=1e-12)
+    assert float((out - image).abs().max()) > 1e-3  # and it is not the identity
+
+
+def test_gain_above_one_drops_every_claim_and_scales_the_network_part():
+    theta, gamma, sigma = 0.75, 1.1, 20 / 255
+    widened = averaged_cnn(sigma, theta=theta, gamma=gamma)
+    assert widened.facts == ()
+    image = torch.from_numpy(bundled_image("camera")[:24, :24])[None, None]
+    network = load_network(AVERAGED_WEIGHTS)
+    with torch.no_grad():
+        part = network.nonexpansive_part(image, sigma, theta)
+        mean = image.mean()
+        expected = (1 - theta) * image + theta * (mean + gamma * (part - mean))
+    torch.testing.assert_close(widened(image), expected, rtol=1e-5, atol=1e-6)
+    with pytest.raises(ValueError, match="gamma"):
+        averaged_cnn(sigma, theta=theta, gamma=0.9)
+    with pytest.raises(ValueError, match="gamma"):
+        load_denoiser(RESIDUAL_WEIGHTS, sigma, gamma=1.1)
+
+
 def test_tampered_weights_lose_the_averagedness_claim(tmp_path):
     payload = read_weights(AVERAGED_WEIGHTS)
     state = dict(payload["state_dict"])
@@ -227,6 +262,60 @@ def test_training_reduces_loss_and_saves_loadable_weights(tmp_path, architecture
     again = train_denoiser([image], **settings)
     for (name, first), second in zip(report.model.state_dict().items(), again.model.state_dict().values()):
         assert torch.equal(first, second), name  # seeded: identical weights
+
+
+def test_fine_tuning_starts_from_the_given_weights(tmp_path):
+    image = bundled_image("camera")[100:164, 100:164]
+    settings = {"steps": 1, "patch_size": 24, "batch_size": 4, "progress": False, "seed": 0}
+    first = train_denoiser([image], depth=3, width=6, learning_rate=1e-3, save_to=tmp_path / "a.pt", **settings)
+    again = train_denoiser([image], initial_weights=first.path, learning_rate=1e-7, **settings)
+    # one Adam step moves each weight by about the learning rate (Kingma & Ba 2015, Sec. 2.1)
+    for (name, start), end in zip(first.model.state_dict().items(), again.model.state_dict().values()):
+        assert float((start - end).abs().max()) <= 2e-7, name
+    with pytest.raises(ValueError, match="sizes"):
+        train_denoiser([image], initial_weights=first.path, width=8, **settings)
+    with pytest.raises(ValueError, match="initial_weights"):
+        train_denoiser([image], architecture="averaged", initial_weights=first.path, **settings)
+
+
+def test_unshuffled_network_folds_and_unfolds_pixels_consistently():
+    # Weights chosen so that R copies its four folded input channels to its
+    # four outputs: R(y) = y for y >= 0, hence D(y) = y - R(y) = 0 exactly when
+    # the fold (pixel_unshuffle) and the unfold (pixel_shuffle) are inverse,
+    # including the padding of odd sizes.
+    network = ResidualCNN(depth=2, width=5, unshuffle=2)
+    with torch.no_grad():
+        for conv in network.body[::2]:
+            conv.weight.zero_()
+            conv.bias.zero_()
+        network.body[0].weight[torch.arange(4), torch.arange(4), 1, 1] = 1.0
+        network.body[2].weight[torch.arange(4), torch.arange(4), 1, 1] = 1.0
+    image = torch.rand(2, 1, 7, 9, generator=torch.Generator().manual_seed(0))
+    for sigma in (0.1, torch.tensor([0.1, 0.2]), torch.full((2, 1, 7, 9), 0.1)):
+        with torch.no_grad():
+            out = network(image, sigma)
+        assert out.shape == image.shape
+        assert float(out.abs().max()) == 0.0
+    assert ResidualCNN(depth=3, width=4, unshuffle=2).config()["unshuffle"] == 2
+    with pytest.raises(ValueError, match="unshuffle"):
+        ResidualCNN(unshuffle=0)
+
+
+def test_low_contrast_patches_keep_their_mean_and_shrink_by_the_drawn_factor():
+    images = [bundled_image("camera")]
+    plain = PatchSampler(images, 32, (0.1, 0.1), seed=4).clean_batch(64)
+    faint = PatchSampler(images, 32, (0.1, 0.1), seed=4, low_contrast=1.0).clean_batch(64)
+    torch.testing.assert_close(faint.mean(dim=(1, 2, 3)), plain.mean(dim=(1, 2, 3)), rtol=0, atol=1e-5)
+    keep = plain.std(dim=(1, 2, 3)) > 1e-3
+    ratio = faint.std(dim=(1, 2, 3))[keep] / plain.std(dim=(1, 2, 3))[keep]
+    assert float(ratio.min()) >= 0.1 - 1e-4 and float(ratio.max()) <= 1.0 + 1e-4
+    assert float(ratio.max() - ratio.min()) > 0.5  # factors spread over [0.1, 1]
+    half = PatchSampler(images, 32, (0.1, 0.1), seed=4, low_contrast=0.5).clean_batch(400)
+    again = PatchSampler(images, 32, (0.1, 0.1), seed=4).clean_batch(400)
+    changed = (half - again).abs().amax(dim=(1, 2, 3)) > 1e-6
+    assert 0.35 < float(changed.float().mean()) < 0.65
+    with pytest.raises(ValueError, match="low_contrast"):
+        PatchSampler(images, 32, (0.1, 0.1), seed=4, low_contrast=1.5)
 
 
 def test_training_rejects_bad_input():

@@ -7,11 +7,15 @@
   averagedness is re-proved from the weights each time they are loaded.
 - :func:`train_denoiser`: train either network on your own images;
   :func:`load_denoiser` loads the result, :func:`module_denoiser` wraps any
-  torch network ``f(noisy, sigma)`` the same way.
+  torch network ``f(noisy, sigma)`` the same way. ``RESIDUAL_WEIGHTS`` and
+  ``AVERAGED_WEIGHTS`` are the shipped files, a starting point for
+  fine-tuning (``train_denoiser(..., initial_weights=RESIDUAL_WEIGHTS)``).
 """
 
 from ._averaged import AveragedCNN, LayerBounds
 from ._denoisers import (
+    AVERAGED_WEIGHTS,
+    RESIDUAL_WEIGHTS,
     LearnedDenoiser,
     averaged_cnn,
     load_denoiser,
@@ -25,6 +29,8 @@ from ._residual import ResidualCNN
 from ._training import TrainingReport, load_training_images, train_denoiser
 
 __all__ = [
+    "AVERAGED_WEIGHTS",
+    "RESIDUAL_WEIGHTS",
     "AveragedCNN",
     "LayerBounds",
     "LearnedDenoiser",

@@ -166,6 +166,13 @@ class PatchSampler:
     the dihedral group (common practice for natural images, which have no
     preferred orientation). Noise levels are uniform on ``noise_range``.
 
+    With ``low_contrast > 0`` that fraction of the patches has its contrast
+    reduced about the patch mean by a factor drawn log-uniformly from
+    ``[0.1, 1]``. Such patches stand for faint, flat frames (dim fluorescence,
+    smooth surfaces), where the noise is large relative to the structure and a
+    denoiser must average over wide areas; without them a network trained on
+    ordinary photographs under-smooths such frames.
+
     Parameters
     ----------
     images : sequence of numpy.ndarray
@@ -176,6 +183,8 @@ class PatchSampler:
         ``(low, high)`` of the noise standard deviation, in image units.
     seed : int
         Seed of the :class:`torch.Generator` that drives all draws.
+    low_contrast : float, optional
+        Fraction in ``[0, 1]`` of patches with reduced contrast.
     """
 
     def __init__(
@@ -184,10 +193,14 @@ class PatchSampler:
         patch_size: int,
         noise_range: tuple[float, float],
         seed: int,
+        low_contrast: float = 0.0,
     ) -> None:
+        if not 0.0 <= low_contrast <= 1.0:
+            raise ValueError(f"`low_contrast` must lie in [0, 1], got {low_contrast!r}")
         self.images = [torch.from_numpy(np.ascontiguousarray(im, dtype=np.float32)) for im in images]
         self.patch_size = patch_size
         self.noise_range = noise_range
+        self.low_contrast = low_contrast
         self.generator = torch.Generator().manual_seed(seed)
         areas = torch.tensor([float(im.numel()) for im in self.images])
         self.weights = areas / areas.sum()
@@ -209,7 +222,13 @@ class PatchSampler:
             if self._randint(2):
                 patch = patch.flip(1)
             patches.append(patch)
-        return torch.stack(patches)[:, None]
+        batch = torch.stack(patches)[:, None]
+        if self.low_contrast > 0.0:
+            chosen = torch.rand(batch_size, generator=self.generator) < self.low_contrast
+            factor = torch.where(chosen, 10.0 ** -torch.rand(batch_size, generator=self.generator), torch.ones(batch_size))
+            mean = batch.mean(dim=(1, 2, 3), keepdim=True)
+            batch = mean + factor[:, None, None, None] * (batch - mean)
+        return batch
 
     def noisy_batch(self, batch_size: int) -> tuple[torch.Tensor, torch.Tensor, torch.Tensor]:
         """Return ``(clean, noisy, sigma)``, ``sigma`` shaped ``(batch_size,)``."""

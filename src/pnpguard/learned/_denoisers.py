@@ -213,7 +213,13 @@ def residual_cnn(sigma: float, *, weights: str | Path | None = None) -> LearnedD
     return LearnedDenoiser(model, name="residual CNN", sigma=sigma)
 
 
-def averaged_cnn(sigma: float, *, theta: float = 0.9, weights: str | Path | None = None) -> LearnedDenoiser:
+def averaged_cnn(
+    sigma: float,
+    *,
+    theta: float = 0.9,
+    gamma: float = 1.0,
+    weights: str | Path | None = None,
+) -> LearnedDenoiser:
     r"""The shipped averaged CNN denoiser ``D = (1 - theta) I + theta N``.
 
     The averagedness is proved on loading: the norm bound of every
@@ -227,14 +233,22 @@ def averaged_cnn(sigma: float, *, theta: float = 0.9, weights: str | Path | None
         Noise standard deviation in intensity units, within the trained range.
     theta : float, optional
         Averagedness constant, within the trained range (shipped: [0.5, 0.95]).
+    gamma : float, optional
+        Gain on the mean-free network part,
+        ``D = (1 - theta) I + theta (P + gamma (I - P) M (I - P))``. The
+        default 1 keeps the guarantee. ``gamma > 1`` trades it for quality:
+        the network part may then expand distances, so the denoiser carries no
+        fact at all and a guarded run needs the check to estimate its
+        constants (it will usually refuse). Allowed range [1, 2].
     weights : str or pathlib.Path, optional
         A weights file of an :class:`AveragedCNN`; default: the shipped weights.
 
     Returns
     -------
     LearnedDenoiser
-        Differentiable, with a verified ``Fact(kind="averaged")`` when the
-        bound holds; without it (and with a :class:`UserWarning`) otherwise.
+        Differentiable, with a verified ``Fact(kind="averaged")`` when
+        ``gamma = 1`` and the bound holds; without it (and with a
+        :class:`UserWarning` when the bound fails) otherwise.
 
     Raises
     ------
@@ -244,13 +258,19 @@ def averaged_cnn(sigma: float, *, theta: float = 0.9, weights: str | Path | None
 
     Notes
     -----
-    With :math:`L_N = \prod_l \|W_l\|` (each bound valid for every image size,
-    see :func:`conv_norm_bound`) and 1-Lipschitz activations, ``N`` is
-    :math:`L_N`-Lipschitz. If :math:`L_N \le 1`, ``D`` is theta-averaged by
-    definition (Combettes & Yamada 2015, Def. 1.1), ``D`` is
-    :math:`(1 - \theta + \theta L_N)`-Lipschitz and ``D - I = \theta (N - I)``
-    is :math:`\theta (1 + L_N)`-Lipschitz. These hold in exact arithmetic; the
+    With :math:`L_M = \prod_l \|W_l\|` (each bound valid for every image size,
+    see :func:`conv_norm_bound`) and 1-Lipschitz activations, the network
+    ``M`` is :math:`L_M`-Lipschitz, and ``N = P + (I - P) M (I - P)`` (``P``:
+    the image mean, see :class:`AveragedCNN`) is nonexpansive when
+    :math:`L_M \le 1`. Then ``D`` is theta-averaged by definition (Combettes &
+    Yamada 2015, Def. 1.1), ``D`` is 1-Lipschitz (with equality for constant
+    perturbations, which ``D`` passes unchanged) and ``D - I = \theta (N - I)``
+    is :math:`\theta (1 + L_M)`-Lipschitz. These hold in exact arithmetic; the
     float32 evaluation adds rounding of relative size about 1e-7.
+
+    With a gain :math:`\gamma > 1`, ``D`` is only known to be
+    :math:`(1 - \theta + \theta \gamma)`-Lipschitz, a bound above 1, so no
+    averagedness (not even nonexpansiveness) follows and none is claimed.
 
     References
     ----------
@@ -267,12 +287,21 @@ def averaged_cnn(sigma: float, *, theta: float = 0.9, weights: str | Path | None
     low, high = model.theta_range
     if not low <= theta <= high:
         raise ValueError(f"`theta` = {theta!r} is outside the range the network was trained for, [{low:g}, {high:g}]")
+    if isinstance(gamma, bool) or not isinstance(gamma, (int, float)) or not 1.0 <= gamma <= 2.0:
+        raise ValueError(f"`gamma` must be a number in [1, 2], got {gamma!r}")
+    if gamma == 1.0:
+        return LearnedDenoiser(
+            model,
+            name=f"averaged CNN (theta={theta:g})",
+            sigma=sigma,
+            options={"theta": float(theta)},
+            facts=averaged_facts(model, float(theta)),
+        )
     return LearnedDenoiser(
         model,
-        name=f"averaged CNN (theta={theta:g})",
+        name=f"widened CNN (theta={theta:g}, gamma={gamma:g})",
         sigma=sigma,
-        options={"theta": float(theta)},
-        facts=averaged_facts(model, float(theta)),
+        options={"theta": float(theta), "gamma": float(gamma)},
     )
 
 
@@ -293,18 +322,19 @@ def averaged_facts(model: AveragedCNN, theta: float) -> tuple[Fact, ...]:
         )
         return ()
     source = (
-        f"D = (1 - theta) I + theta N with N a convolutional network whose layer norm bounds, "
+        f"D = (1 - theta) I + theta N with N = P + (I - P) M (I - P), P the orthogonal projection "
+        f"onto constant images and M a convolutional network whose layer norm bounds, "
         f"recomputed from the weights when loaded, are [{listed}] (exact circular norms on a "
         f"{bounds.grid}x{bounds.grid} DFT grid, Sedghi, Gupta & Long, ICLR 2019, widened to every "
         f"image size and zero padding by a Bernstein-inequality factor), product "
-        f"{bounds.lipschitz:.6f} <= 1, with 1-Lipschitz activations z - beta clip(z, -t, t), 0 <= beta <= 2: N is nonexpansive, so "
+        f"{bounds.lipschitz:.6f} <= 1, with 1-Lipschitz activations z - beta clip(z, -t, t), 0 <= beta <= 2: M and hence N are nonexpansive, so "
         f"D is theta-averaged (Combettes & Yamada 2015, Def. 1.1)"
     )
     return (
         Fact(
             "averaged",
             theta=theta,
-            lipschitz=1.0 - theta + theta * bounds.lipschitz,
+            lipschitz=1.0,
             residual_lipschitz=theta * (1.0 + bounds.lipschitz),
             verified=True,
             source=source,
@@ -313,7 +343,7 @@ def averaged_facts(model: AveragedCNN, theta: float) -> tuple[Fact, ...]:
 
 
 def load_denoiser(
-    path: str | Path, sigma: float, *, theta: float | None = None
+    path: str | Path, sigma: float, *, theta: float | None = None, gamma: float = 1.0
 ) -> LearnedDenoiser:
     """A denoiser from a weights file written by :func:`train_denoiser`.
 
@@ -325,6 +355,8 @@ def load_denoiser(
         Noise level, within the range the network was trained on.
     theta : float, optional
         Required for an averaged network, not allowed for a residual one.
+    gamma : float, optional
+        Averaged network only: gain on the network part (see :func:`averaged_cnn`).
 
     Returns
     -------
@@ -335,9 +367,9 @@ def load_denoiser(
     if isinstance(model, AveragedCNN):
         if theta is None:
             raise ValueError("`theta` is required for an averaged network")
-        return averaged_cnn(sigma, theta=theta, weights=path)
-    if theta is not None:
-        raise ValueError("`theta` applies to averaged networks only; this file holds a residual CNN")
+        return averaged_cnn(sigma, theta=theta, gamma=gamma, weights=path)
+    if theta is not None or gamma != 1.0:
+        raise ValueError("`theta` and `gamma` apply to averaged networks only; this file holds a residual CNN")
     return residual_cnn(sigma, weights=path)
 
 

@@ -209,20 +209,41 @@ def load_training_images(images: str | Path | Sequence[np.ndarray], name: str = 
     return result
 
 
-def _build(architecture: str, depth: int | None, width: int | None, theta_range: tuple[float, float], seed: int) -> nn.Module:
+def _build(
+    architecture: str,
+    sizes: dict[str, int],
+    theta_range: tuple[float, float],
+    seed: int,
+    initial_weights: str | Path | None,
+) -> nn.Module:
     from ._averaged import AveragedCNN
     from ._residual import ResidualCNN
 
-    # Initialise from a private copy of the global generator state: the seed
-    # fixes the initial weights without changing the caller's random state.
-    with torch.random.fork_rng(devices=[]):
-        torch.manual_seed(seed)
-        sizes = {key: value for key, value in (("depth", depth), ("width", width)) if value is not None}
-        if architecture == "residual":
-            return ResidualCNN(**sizes)
-        model = AveragedCNN(**sizes, theta_range=theta_range)
+    if initial_weights is not None:
+        from ._denoisers import load_network
+
+        model = load_network(initial_weights)
+        expected = {"residual": ResidualCNN, "averaged": AveragedCNN}[architecture]
+        if not isinstance(model, expected):
+            raise ValueError(f"`initial_weights` hold a {type(model).__name__}, not a {expected.__name__}")
+        config = model.config()
+        clashes = {key: (value, config[key]) for key, value in sizes.items() if config.get(key) != value}
+        if clashes:
+            raise ValueError(f"`initial_weights` disagree with the requested sizes (requested, stored): {clashes}")
+        if isinstance(model, AveragedCNN):
+            model.theta_range = theta_range
+    else:
+        # Initialise from a private copy of the global generator state: the seed
+        # fixes the initial weights without changing the caller's random state.
+        with torch.random.fork_rng(devices=[]):
+            torch.manual_seed(seed)
+            if architecture == "residual":
+                model = ResidualCNN(**sizes)
+            else:
+                model = AveragedCNN(**sizes, theta_range=theta_range)
+    if isinstance(model, AveragedCNN):
         model.start_normalised_training(seed=seed)
-        return model
+    return model
 
 
 def _residual_predict(model: nn.Module, noisy: torch.Tensor, sigma: torch.Tensor, generator: torch.Generator) -> torch.Tensor:
@@ -244,10 +265,13 @@ def train_denoiser(
     seconds: float | None = None,
     depth: int | None = None,
     width: int | None = None,
+    unshuffle: int | None = None,
     theta_range: tuple[float, float] = (0.5, 0.95),
     patch_size: int = 40,
     batch_size: int = 32,
     learning_rate: float = 1e-3,
+    low_contrast: float = 0.0,
+    initial_weights: str | Path | None = None,
     validation_images: str | Path | Sequence[np.ndarray] | None = None,
     validate_every: int = 100,
     save_to: str | Path | None = None,
@@ -275,12 +299,24 @@ def train_denoiser(
         whichever comes first. At least one is required.
     depth, width : int, optional
         Network size (defaults as above).
+    unshuffle : int, optional
+        Residual network only: pixel blocks folded into channels (see
+        :class:`ResidualCNN`; default 1).
     theta_range : tuple of float, optional
         Averaged network only: range of ``theta`` drawn during training.
     patch_size, batch_size : int, optional
         Square training patches per step.
     learning_rate : float, optional
         Initial Adam step, decayed to 1% by a cosine schedule over the budget.
+    low_contrast : float, optional
+        Fraction of training patches whose contrast is reduced (see
+        :class:`~pnpguard.learned._data.PatchSampler`); useful when the frames
+        to denoise are faint or flat.
+    initial_weights : str or pathlib.Path, optional
+        Start from these weights (a file of the same architecture, for example
+        a shipped one) instead of a fresh initialisation: fine-tuning on your
+        own images. ``depth``, ``width`` and ``unshuffle``, when given, must
+        match the file.
     validation_images : folder or sequence of arrays, optional
         Images for the validation printout (64 fixed patches at noise level
         25/255). When omitted the patches are cut from the training images
@@ -334,8 +370,11 @@ def train_denoiser(
         validation_pool, validation_seed = training, seed + 1000
     else:
         validation_pool, validation_seed = load_training_images(validation_images, "validation_images"), seed
-    model = _build(architecture, depth, width, tuple(theta_range), seed)
-    sampler = PatchSampler(training, patch_size, (low, high), seed)
+    if unshuffle is not None and architecture != "residual":
+        raise ValueError("`unshuffle` applies to the residual architecture only")
+    sizes = {key: value for key, value in (("depth", depth), ("width", width), ("unshuffle", unshuffle)) if value is not None}
+    model = _build(architecture, sizes, tuple(theta_range), seed, initial_weights)
+    sampler = PatchSampler(training, patch_size, (low, high), seed, low_contrast=low_contrast)
     validation = validation_set(validation_pool, min(64, *(min(im.shape) for im in validation_pool)), 64, seed=validation_seed)
     if architecture == "residual":
         predict = _residual_predict
@@ -374,6 +413,8 @@ def train_denoiser(
             "patch_size": patch_size,
             "batch_size": batch_size,
             "learning_rate": learning_rate,
+            "low_contrast": low_contrast,
+            "initial_weights": None if initial_weights is None else Path(initial_weights).name,
             "seed": seed,
             "torch_threads": torch.get_num_threads(),
         }
