@@ -40,26 +40,24 @@ from pnpguard.learned._training import train_denoiser
 
 WEIGHTS = Path(__file__).resolve().parents[1] / "src" / "pnpguard" / "learned" / "weights"
 
-#: Settings of the shipped runs.
+#: Settings of the shipped runs. A run is a list of stages; every stage after
+#: the first starts from the weights the previous one saved (fine-tuning with a
+#: new learning-rate cycle and new patches).
 RUNS = {
     "residual": {
-        "steps": 9000,
-        "batch_size": 16,
-        "patch_size": 64,
-        "depth": 15,
-        "width": 64,
-        "unshuffle": 2,
-        "low_contrast": 0.25,
         "file": "residual_cnn.pt",
+        "network": {"depth": 15, "width": 64, "unshuffle": 2},
+        "stages": [
+            {"steps": 9000, "batch_size": 16, "patch_size": 64, "low_contrast": 0.25, "learning_rate": 1e-3, "seed": 0},
+            {"steps": 5500, "batch_size": 16, "patch_size": 64, "low_contrast": 0.25, "learning_rate": 3e-4, "seed": 1},
+        ],
     },
     "averaged": {
-        "steps": 6000,
-        "batch_size": 16,
-        "patch_size": 40,
-        "depth": 8,
-        "width": 32,
-        "low_contrast": 0.25,
         "file": "averaged_cnn.pt",
+        "network": {"depth": 8, "width": 32},
+        "stages": [
+            {"steps": 6000, "batch_size": 16, "patch_size": 40, "low_contrast": 0.25, "learning_rate": 1e-3, "seed": 0},
+        ],
     },
 }
 THETAS = (0.5, 0.75, 0.9)
@@ -78,32 +76,35 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("which", choices=sorted(RUNS))
     parser.add_argument("--threads", type=int, default=1)
-    parser.add_argument("--steps", type=int, default=None, help="override the shipped step count")
     parser.add_argument("--out", type=Path, default=WEIGHTS)
     args = parser.parse_args()
     torch.set_num_threads(args.threads)
     torch.set_flush_denormal(True)
     run = RUNS[args.which]
-    steps = args.steps or run["steps"]
     images = default_training_images()
     validation = [bundled_image(name) for name in VALIDATION_IMAGES]
     start = time.perf_counter()
-    report = train_denoiser(
-        images,
-        architecture=args.which,
-        steps=steps,
-        depth=run["depth"],
-        width=run["width"],
-        unshuffle=run.get("unshuffle"),
-        patch_size=run["patch_size"],
-        low_contrast=run["low_contrast"],
-        batch_size=run["batch_size"],
-        validation_images=validation,
-        validate_every=250,
-        save_to=args.out / run["file"],
-        progress=True,
-        seed=0,
-    )
+    previous, history, stages = None, [], []
+    for index, stage in enumerate(run["stages"]):
+        last = index == len(run["stages"]) - 1
+        target = args.out / (run["file"] if last else f"{Path(run['file']).stem}.stage{index + 1}.pt")
+        report = train_denoiser(
+            images,
+            architecture=args.which,
+            **(run["network"] if previous is None else {}),
+            initial_weights=previous,
+            validation_images=validation,
+            validate_every=250,
+            save_to=target,
+            progress=True,
+            **stage,
+        )
+        offset = sum(entry["steps"] for entry in stages)
+        history += [[offset + s, round(v, 3)] for s, v in report.validation_psnr]
+        stages.append({**stage, "steps": report.steps, "training_seconds": round(report.seconds, 1)})
+        if previous is not None:
+            previous.unlink()  # intermediate weights are not shipped
+        previous = target
     wall = time.perf_counter() - start
     model = report.model
     if args.which == "residual":
@@ -115,15 +116,16 @@ def main() -> None:
         "architecture": type(model).__name__,
         "config": model.config(),
         "parameters": sum(p.numel() for p in model.parameters()),
-        "steps": report.steps,
-        "training_seconds": round(report.seconds, 1),
+        "steps": sum(stage["steps"] for stage in stages),
+        "training_seconds": round(sum(stage["training_seconds"] for stage in stages), 1),
+        "stages": stages,
         "wall_seconds_including_setup": round(wall, 1),
         "torch_threads": args.threads,
         "machine": f"{platform.machine()}, {torch.get_num_threads()} torch thread(s), torch {torch.__version__}",
         "training_images": list(TRAINING_IMAGES) + ["12 synthetic frames (seed 0)"],
         "validation_images": list(VALIDATION_IMAGES),
         "held_out_images": list(HELD_OUT_IMAGES),
-        "validation_psnr_history": [[s, round(v, 3)] for s, v in report.validation_psnr],
+        "validation_psnr_history": history,
         "held_out_psnr": table,
         "held_out_protocol": "noisy = clean + (level/255) * n, n ~ N(0, 1) from numpy default_rng(0), float32, PSNR with data range 1",
     }
@@ -132,7 +134,7 @@ def main() -> None:
     record[args.which] = entry
     record_path.write_text(json.dumps(record, indent=2) + "\n")
     print(json.dumps(entry["held_out_psnr"], indent=2))
-    print(f"training took {report.seconds:.0f} s for {report.steps} steps")
+    print(f"training took {entry['training_seconds']:.0f} s for {entry['steps']} steps")
 
 
 if __name__ == "__main__":

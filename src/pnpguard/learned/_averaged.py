@@ -76,13 +76,15 @@ class AveragedCNN(nn.Module):
     r"""Denoiser ``D = (1 - theta) I + theta N`` with ``N`` 1-Lipschitz by construction.
 
     ``N = P + (I - P) M (I - P)``, where ``P`` replaces an image by its mean
-    (the orthogonal projection onto constant images) and ``M`` alternates 3x3
-    zero-padded convolutions and the 1-Lipschitz activation
-    :func:`reflected_shrink`, whose thresholds, slopes and biases a small
-    perceptron computes from ``(sigma, theta)``. For fixed ``(sigma, theta)``
-    these are constants, so the Lipschitz constant of ``M`` as a function of
-    the image is at most the product of the convolution norms. When that
-    product is at most 1, ``N`` is nonexpansive and ``D`` is theta-averaged.
+    (the orthogonal projection onto constant images) and
+    ``M = a I + (1 - a) C``: ``C`` alternates 3x3 zero-padded convolutions and
+    the 1-Lipschitz activation :func:`reflected_shrink`, and a small
+    perceptron computes the skip weight ``a`` in ``(0, 1)`` and the
+    activations' thresholds, slopes and biases from ``(sigma, theta)``. For
+    fixed ``(sigma, theta)`` these are constants, so the Lipschitz constant of
+    ``C`` as a function of the image is at most the product of the convolution
+    norms. When that product is at most 1, ``C``, ``M`` and ``N`` are
+    nonexpansive and ``D`` is theta-averaged.
 
     Parameters
     ----------
@@ -100,6 +102,11 @@ class AveragedCNN(nn.Module):
     -----
     Definition: ``D`` is theta-averaged if ``D = (1 - theta) I + theta N`` with
     ``N`` nonexpansive (Combettes & Yamada 2015, Def. 1.1).
+
+    ``M`` is nonexpansive when ``C`` is, as a convex combination of
+    nonexpansive maps. The skip weight lets ``D`` approach the identity at low
+    noise levels, which a stack of norm-bounded layers shared across levels
+    cannot represent by itself; plug-and-play runs use weak denoisers often.
 
     Why ``N`` is nonexpansive when ``M`` is: ``P`` and ``I - P`` are orthogonal
     projections onto orthogonal subspaces, so for images ``x, y`` with
@@ -161,9 +168,9 @@ class AveragedCNN(nn.Module):
         self.convs = nn.ModuleList(
             nn.Conv2d(c_in, c_out, 3, padding=1, bias=False) for c_in, c_out in pairwise(channels)
         )
-        # Per hidden layer: bias, threshold and slope of each channel (an
-        # output bias would be removed by I - P, so there is none).
-        self.parameter_sizes = [3 * width] * (depth - 1)
+        # Per hidden layer: bias, threshold and slope of each channel; then the
+        # skip weight (an output bias would be removed by I - P: there is none).
+        self.parameter_sizes = [3 * width] * (depth - 1) + [1]
         self.condition = nn.Sequential(
             nn.Linear(2, embedding), nn.SiLU(), nn.Linear(embedding, sum(self.parameter_sizes))
         )
@@ -237,6 +244,8 @@ class AveragedCNN(nn.Module):
     ) -> torch.Tensor:
         """``N(y; sigma, theta) = P y + gamma (I - P) M((I - P) y)`` for ``(B, 1, H, W)`` images ``y``.
 
+        ``M(h) = a h + (1 - a) C(h)`` (class docstring).
+
         ``sigma`` and ``theta`` are scalars or one value per image (shape
         ``(B,)``). ``gamma = 1`` (the default) gives the nonexpansive ``N``;
         a larger gain scales the mean-free part only.
@@ -246,11 +255,13 @@ class AveragedCNN(nn.Module):
         theta_t = torch.as_tensor(theta, dtype=noisy.dtype, device=noisy.device).expand(batch)
         settings = self.condition(torch.stack([sigma_t, theta_t], dim=1)).split(self.parameter_sizes, dim=1)
         mean = noisy.mean(dim=(-2, -1), keepdim=True)
-        h = noisy - mean
-        for conv, setting in zip(self.convs[:-1], settings):
+        centred = noisy - mean
+        h = centred
+        for conv, setting in zip(self.convs[:-1], settings[:-1]):
             bias, threshold, slope = setting.chunk(3, dim=1)
             h = reflected_shrink(conv(h) + bias[:, :, None, None], F.softplus(threshold), 2 * torch.sigmoid(slope))
-        h = self.convs[-1](h)
+        skip = torch.sigmoid(settings[-1])[:, :, None, None]
+        h = skip * centred + (1 - skip) * self.convs[-1](h)
         h = h - h.mean(dim=(-2, -1), keepdim=True)
         return mean + (gamma * h if gamma != 1.0 else h)
 

@@ -258,14 +258,15 @@ def averaged_cnn(
 
     Notes
     -----
-    With :math:`L_M = \prod_l \|W_l\|` (each bound valid for every image size,
+    With :math:`L_C = \prod_l \|W_l\|` (each bound valid for every image size,
     see :func:`conv_norm_bound`) and 1-Lipschitz activations, the network
-    ``M`` is :math:`L_M`-Lipschitz, and ``N = P + (I - P) M (I - P)`` (``P``:
-    the image mean, see :class:`AveragedCNN`) is nonexpansive when
-    :math:`L_M \le 1`. Then ``D`` is theta-averaged by definition (Combettes &
-    Yamada 2015, Def. 1.1), ``D`` is 1-Lipschitz (with equality for constant
-    perturbations, which ``D`` passes unchanged) and ``D - I = \theta (N - I)``
-    is :math:`\theta (1 + L_M)`-Lipschitz. These hold in exact arithmetic; the
+    ``C`` is :math:`L_C`-Lipschitz; ``M = a I + (1 - a) C`` and
+    ``N = P + (I - P) M (I - P)`` (``P``: the image mean, see
+    :class:`AveragedCNN`) are nonexpansive when :math:`L_C \le 1`. Then ``D``
+    is theta-averaged by definition (Combettes & Yamada 2015, Def. 1.1),
+    ``D`` is 1-Lipschitz (with equality for constant perturbations, which
+    ``D`` passes unchanged) and ``D - I = \theta (N - I)`` is
+    :math:`2 \theta`-Lipschitz. These hold in exact arithmetic; the
     float32 evaluation adds rounding of relative size about 1e-7.
 
     With a gain :math:`\gamma > 1`, ``D`` is only known to be
@@ -323,11 +324,11 @@ def averaged_facts(model: AveragedCNN, theta: float) -> tuple[Fact, ...]:
         return ()
     source = (
         f"D = (1 - theta) I + theta N with N = P + (I - P) M (I - P), P the orthogonal projection "
-        f"onto constant images and M a convolutional network whose layer norm bounds, "
+        f"onto constant images, M = a I + (1 - a) C with 0 < a < 1 and C a convolutional network whose layer norm bounds, "
         f"recomputed from the weights when loaded, are [{listed}] (exact circular norms on a "
         f"{bounds.grid}x{bounds.grid} DFT grid, Sedghi, Gupta & Long, ICLR 2019, widened to every "
         f"image size and zero padding by a Bernstein-inequality factor), product "
-        f"{bounds.lipschitz:.6f} <= 1, with 1-Lipschitz activations z - beta clip(z, -t, t), 0 <= beta <= 2: M and hence N are nonexpansive, so "
+        f"{bounds.lipschitz:.6f} <= 1, with 1-Lipschitz activations z - beta clip(z, -t, t), 0 <= beta <= 2: C, M and hence N are nonexpansive, so "
         f"D is theta-averaged (Combettes & Yamada 2015, Def. 1.1)"
     )
     return (
@@ -335,7 +336,7 @@ def averaged_facts(model: AveragedCNN, theta: float) -> tuple[Fact, ...]:
             "averaged",
             theta=theta,
             lipschitz=1.0,
-            residual_lipschitz=theta * (1.0 + bounds.lipschitz),
+            residual_lipschitz=2.0 * theta,
             verified=True,
             source=source,
         ),
