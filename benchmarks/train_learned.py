@@ -46,10 +46,10 @@ WEIGHTS = Path(__file__).resolve().parents[1] / "src" / "pnpguard" / "learned" /
 RUNS = {
     "residual": {
         "file": "residual_cnn.pt",
-        "network": {"depth": 15, "width": 64, "unshuffle": 2},
+        "network": {"depth": 12, "width": 32, "initialisation": "torch-default"},
         "stages": [
-            {"steps": 9000, "batch_size": 16, "patch_size": 64, "low_contrast": 0.25, "learning_rate": 1e-3, "seed": 0},
-            {"steps": 5500, "batch_size": 16, "patch_size": 64, "low_contrast": 0.25, "learning_rate": 3e-4, "seed": 1},
+            {"steps": 3000, "batch_size": 32, "patch_size": 40, "low_contrast": 0.0, "learning_rate": 1e-3, "seed": 0},
+            {"steps": 6500, "batch_size": 32, "patch_size": 40, "low_contrast": 0.25, "learning_rate": 3e-4, "seed": 1},
         ],
     },
     "averaged": {

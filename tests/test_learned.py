@@ -301,6 +301,23 @@ def test_unshuffled_network_folds_and_unfolds_pixels_consistently():
         ResidualCNN(unshuffle=0)
 
 
+def test_he_initialisation_keeps_the_signal_scale_through_the_depth():
+    # He et al. (2015), Sec. 2.2: weights of variance 2 / fan_in keep the second
+    # moment of ReLU activations constant with depth; torch's default shrinks it.
+    image = torch.randn(4, 1, 32, 32, generator=torch.Generator().manual_seed(1))
+    scales = {}
+    for scheme in ("he", "torch-default"):
+        torch.manual_seed(0)
+        network = ResidualCNN(depth=15, width=32, initialisation=scheme)
+        with torch.no_grad():
+            hidden = network.body[:-1](torch.cat([image, torch.full_like(image, 0.1)], dim=1))
+        scales[scheme] = float(hidden.square().mean().sqrt())
+    assert 0.2 < scales["he"] < 5.0
+    assert scales["torch-default"] < 0.2 * scales["he"]
+    with pytest.raises(ValueError, match="initialisation"):
+        ResidualCNN(initialisation="zeros")
+
+
 def test_low_contrast_patches_keep_their_mean_and_shrink_by_the_drawn_factor():
     images = [bundled_image("camera")]
     plain = PatchSampler(images, 32, (0.1, 0.1), seed=4).clean_batch(64)

@@ -146,8 +146,12 @@ def _load(path: str | Path, expected: str | None = None) -> tuple[nn.Module, dic
         )
     if expected is not None and architecture != expected:
         raise ValueError(f"`weights` {str(path)!r} holds a {architecture}, not a {expected}")
+    config = dict(payload["config"])
+    if architecture == "ResidualCNN":
+        # Files written before the option existed were initialised by torch's default.
+        config.setdefault("initialisation", "torch-default")
     try:
-        model = _ARCHITECTURES[architecture](**payload["config"])
+        model = _ARCHITECTURES[architecture](**config)
         model.load_state_dict(payload["state_dict"], strict=True)
     except (TypeError, RuntimeError) as error:
         raise ValueError(f"`path` {str(path)!r} does not fit {architecture}: {error}") from error

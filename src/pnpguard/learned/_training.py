@@ -211,7 +211,7 @@ def load_training_images(images: str | Path | Sequence[np.ndarray], name: str = 
 
 def _build(
     architecture: str,
-    sizes: dict[str, int],
+    sizes: dict[str, int | str],
     theta_range: tuple[float, float],
     seed: int,
     initial_weights: str | Path | None,
@@ -266,6 +266,7 @@ def train_denoiser(
     depth: int | None = None,
     width: int | None = None,
     unshuffle: int | None = None,
+    initialisation: str | None = None,
     theta_range: tuple[float, float] = (0.5, 0.95),
     patch_size: int = 40,
     batch_size: int = 32,
@@ -302,6 +303,9 @@ def train_denoiser(
     unshuffle : int, optional
         Residual network only: pixel blocks folded into channels (see
         :class:`ResidualCNN`; default 1).
+    initialisation : {"he", "torch-default"}, optional
+        Residual network only: initial weights (see :class:`ResidualCNN`;
+        default "he").
     theta_range : tuple of float, optional
         Averaged network only: range of ``theta`` drawn during training.
     patch_size, batch_size : int, optional
@@ -370,9 +374,10 @@ def train_denoiser(
         validation_pool, validation_seed = training, seed + 1000
     else:
         validation_pool, validation_seed = load_training_images(validation_images, "validation_images"), seed
-    if unshuffle is not None and architecture != "residual":
-        raise ValueError("`unshuffle` applies to the residual architecture only")
-    sizes = {key: value for key, value in (("depth", depth), ("width", width), ("unshuffle", unshuffle)) if value is not None}
+    if architecture != "residual" and (unshuffle is not None or initialisation is not None):
+        raise ValueError("`unshuffle` and `initialisation` apply to the residual architecture only")
+    requested = (("depth", depth), ("width", width), ("unshuffle", unshuffle), ("initialisation", initialisation))
+    sizes = {key: value for key, value in requested if value is not None}
     model = _build(architecture, sizes, tuple(theta_range), seed, initial_weights)
     sampler = PatchSampler(training, patch_size, (low, high), seed, low_contrast=low_contrast)
     validation = validation_set(validation_pool, min(64, *(min(im.shape) for im in validation_pool)), 64, seed=validation_seed)
