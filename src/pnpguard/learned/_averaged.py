@@ -263,7 +263,7 @@ class AveragedCNN(nn.Module):
         skip = torch.sigmoid(settings[-1])[:, :, None, None]
         h = skip * centred + (1 - skip) * self.convs[-1](h)
         h = h - h.mean(dim=(-2, -1), keepdim=True)
-        return mean + (gamma * h if gamma != 1.0 else h)
+        return mean + gamma * h
 
     def forward(
         self,
