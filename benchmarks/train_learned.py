@@ -52,6 +52,13 @@ RUNS = {
             {"steps": 6500, "batch_size": 32, "patch_size": 40, "low_contrast": 0.25, "learning_rate": 3e-4, "seed": 1},
         ],
     },
+    "multiscale": {
+        "file": "multiscale_cnn.pt",
+        "network": {"widths": [16, 32, 64, 64], "blocks": 1},
+        "stages": [
+            {"steps": 18000, "batch_size": 16, "patch_size": 64, "low_contrast": 0.25, "learning_rate": 1e-3, "seed": 0},
+        ],
+    },
     "averaged": {
         "file": "averaged_cnn.pt",
         "network": {"depth": 8, "width": 32},
@@ -107,7 +114,7 @@ def main() -> None:
         previous = target
     wall = time.perf_counter() - start
     model = report.model
-    if args.which == "residual":
+    if args.which != "averaged":
         table = held_out_table(_denoise_with(model))
     else:
         table = {f"theta={theta:g}": held_out_table(_denoise_with(model, theta=theta)) for theta in THETAS}

@@ -12,6 +12,7 @@ import torch.nn.functional as F
 
 from pnpguard.learned import (
     AveragedCNN,
+    MultiscaleResidualCNN,
     ResidualCNN,
     averaged_cnn,
     circular_conv_norm,
@@ -235,15 +236,15 @@ def test_tampered_weights_lose_the_averagedness_claim(tmp_path):
 
 
 # -------------------------------------------------------------------- training
-@pytest.mark.parametrize("architecture", ["residual", "averaged"])
+@pytest.mark.parametrize("architecture", ["residual", "averaged", "multiscale"])
 def test_training_reduces_loss_and_saves_loadable_weights(tmp_path, architecture):
     image = bundled_image("camera")[100:164, 100:164]
+    sizes = {"widths": [6, 8], "blocks": 1} if architecture == "multiscale" else {"depth": 3, "width": 10}
     settings = {
         "architecture": architecture,
         "noise_range": (0.05, 0.15),
         "steps": 40,
-        "depth": 3,
-        "width": 10,
+        **sizes,
         "patch_size": 24,
         "batch_size": 8,
         "learning_rate": 3e-3,
@@ -301,6 +302,38 @@ def test_unshuffled_network_folds_and_unfolds_pixels_consistently():
         ResidualCNN(unshuffle=0)
 
 
+def test_multiscale_network_reaches_far_and_handles_any_size():
+    # Receptive field: 3x3 convolutions at full resolution reach 1 pixel each;
+    # every coarser level multiplies the reach of its convolutions by 2. With
+    # widths (4, 4, 4, 4) and one block per level a pixel 40 rows away must
+    # influence the output, which no 12-layer plain stack (reach 12) can do.
+    torch.manual_seed(0)
+    network = MultiscaleResidualCNN(widths=(4, 4, 4, 4), blocks=1)
+    for block in network.modules():  # leave the identity start: random second convolutions
+        if isinstance(block, torch.nn.Conv2d):
+            torch.nn.init.normal_(block.weight, std=0.3)
+    image = torch.rand(1, 1, 96, 96, generator=torch.Generator().manual_seed(1), requires_grad=True)
+    network(image, 0.1)[0, 0, 8, 48].backward()
+    influence = image.grad[0, 0].abs()
+    assert float(influence[48:, :].max()) > 0.0
+    assert float(influence[8 + 60 :, :].max()) == 0.0  # but the reach is finite
+    for shape in [(1, 1, 37, 45), (2, 3, 8, 9), (1, 1, 5, 6)]:
+        noisy = torch.rand(shape, generator=torch.Generator().manual_seed(2))
+        for sigma in (0.1, torch.full((shape[0],), 0.1), torch.full((shape[0], 1, shape[2], shape[3]), 0.1)):
+            with torch.no_grad():
+                out = network(noisy, sigma)
+            assert out.shape == noisy.shape and bool(torch.isfinite(out).all())
+    with torch.no_grad():  # channels are denoised separately
+        both = network(torch.rand(1, 2, 16, 16, generator=torch.Generator().manual_seed(3)), 0.1)
+        alone = network(torch.rand(1, 2, 16, 16, generator=torch.Generator().manual_seed(3))[:, 1:], 0.1)
+    torch.testing.assert_close(both[:, 1:], alone)
+    assert MultiscaleResidualCNN(widths=(4, 8), blocks=2).config() == {"widths": [4, 8], "blocks": 2}
+    with pytest.raises(ValueError, match="widths"):
+        MultiscaleResidualCNN(widths=(4,))
+    with pytest.raises(ValueError, match="blocks"):
+        MultiscaleResidualCNN(blocks=0)
+
+
 def test_he_initialisation_keeps_the_signal_scale_through_the_depth():
     # He et al. (2015), Sec. 2.2: weights of variance 2 / fan_in keep the second
     # moment of ReLU activations constant with depth; torch's default shrinks it.
@@ -342,6 +375,10 @@ def test_training_rejects_bad_input():
         train_denoiser([np.zeros((64, 64), dtype=np.uint8)], steps=1)
     with pytest.raises(ValueError, match="architecture"):
         train_denoiser([np.zeros((64, 64))], steps=1, architecture="unet")
+    with pytest.raises(ValueError, match="`depth`.*multiscale"):
+        train_denoiser([np.zeros((64, 64))], steps=1, architecture="multiscale", depth=3)
+    with pytest.raises(ValueError, match="`widths`.*residual"):
+        train_denoiser([np.zeros((64, 64))], steps=1, widths=[4, 8])
 
 
 def test_module_denoiser_wraps_a_network_with_unverified_claims():

@@ -25,6 +25,7 @@ from ._denoisers import (
     verified_layer_bounds,
 )
 from ._lipschitz import circular_conv_norm, conv_norm_bound
+from ._multiscale import MultiscaleResidualCNN
 from ._residual import ResidualCNN
 from ._training import TrainingReport, load_training_images, train_denoiser
 
@@ -34,6 +35,7 @@ __all__ = [
     "AveragedCNN",
     "LayerBounds",
     "LearnedDenoiser",
+    "MultiscaleResidualCNN",
     "ResidualCNN",
     "TrainingReport",
     "averaged_cnn",

@@ -15,6 +15,7 @@ from torch import nn
 from ..denoisers._base import Denoiser, check_sigma
 from ..denoisers._facts import ClaimLike, Fact, as_claim
 from ._averaged import AveragedCNN, LayerBounds
+from ._multiscale import MultiscaleResidualCNN
 from ._residual import ResidualCNN
 from ._weights import read_weights
 
@@ -23,7 +24,13 @@ WEIGHTS_DIR = Path(__file__).resolve().parent / "weights"
 RESIDUAL_WEIGHTS = WEIGHTS_DIR / "residual_cnn.pt"
 AVERAGED_WEIGHTS = WEIGHTS_DIR / "averaged_cnn.pt"
 
-_ARCHITECTURES: dict[str, type[nn.Module]] = {"AveragedCNN": AveragedCNN, "ResidualCNN": ResidualCNN}
+_ARCHITECTURES: dict[str, type[nn.Module]] = {
+    "AveragedCNN": AveragedCNN,
+    "MultiscaleResidualCNN": MultiscaleResidualCNN,
+    "ResidualCNN": ResidualCNN,
+}
+#: Architectures that predict the noise and carry no facts.
+_RESIDUAL_FAMILY = ("MultiscaleResidualCNN", "ResidualCNN")
 
 # Layer bounds recomputed in this process, keyed by a hash of the weights
 # they were computed from (never read from a file).
@@ -125,7 +132,8 @@ def load_network(path: str | Path) -> nn.Module:
     Returns
     -------
     torch.nn.Module
-        A :class:`ResidualCNN` or :class:`AveragedCNN` in evaluation mode.
+        A :class:`ResidualCNN`, :class:`MultiscaleResidualCNN` or
+        :class:`AveragedCNN` in evaluation mode.
 
     Raises
     ------
@@ -136,7 +144,7 @@ def load_network(path: str | Path) -> nn.Module:
     return _load(path)[0]
 
 
-def _load(path: str | Path, expected: str | None = None) -> tuple[nn.Module, dict]:
+def _load(path: str | Path, expected: tuple[str, ...] | None = None) -> tuple[nn.Module, dict]:
     payload = read_weights(path)
     architecture = payload["architecture"]
     if architecture not in _ARCHITECTURES:
@@ -144,8 +152,8 @@ def _load(path: str | Path, expected: str | None = None) -> tuple[nn.Module, dic
             f"`path` {str(path)!r} holds architecture {architecture!r}; "
             f"known: {sorted(_ARCHITECTURES)}"
         )
-    if expected is not None and architecture != expected:
-        raise ValueError(f"`weights` {str(path)!r} holds a {architecture}, not a {expected}")
+    if expected is not None and architecture not in expected:
+        raise ValueError(f"`weights` {str(path)!r} holds a {architecture}, not a {' or '.join(expected)}")
     config = dict(payload["config"])
     if architecture == "ResidualCNN":
         # Files written before the option existed were initialised by torch's default.
@@ -178,8 +186,9 @@ def residual_cnn(sigma: float, *, weights: str | Path | None = None) -> LearnedD
         Noise standard deviation in intensity units (images in [0, 1]: for
         example ``25 / 255``); within the trained range [0, 55/255].
     weights : str or pathlib.Path, optional
-        A weights file of a :class:`ResidualCNN` (from :func:`train_denoiser`);
-        default: the shipped weights.
+        A weights file of a :class:`ResidualCNN` or a
+        :class:`MultiscaleResidualCNN` (from :func:`train_denoiser`); default:
+        the shipped weights.
 
     Returns
     -------
@@ -212,7 +221,7 @@ def residual_cnn(sigma: float, *, weights: str | Path | None = None) -> LearnedD
     True
     """
     path = Path(weights) if weights is not None else RESIDUAL_WEIGHTS
-    model, training = _load(path, "ResidualCNN")
+    model, training = _load(path, _RESIDUAL_FAMILY)
     sigma = _check_trained_sigma(sigma, training)
     return LearnedDenoiser(model, name="residual CNN", sigma=sigma)
 
@@ -285,7 +294,7 @@ def averaged_cnn(
        convolutional layers", ICLR 2019.
     """
     path = Path(weights) if weights is not None else AVERAGED_WEIGHTS
-    model, training = _load(path, "AveragedCNN")
+    model, training = _load(path, ("AveragedCNN",))
     sigma = _check_trained_sigma(sigma, training)
     if isinstance(theta, bool) or not isinstance(theta, (int, float)):
         raise TypeError(f"`theta` must be a number, got {type(theta).__name__}")

@@ -140,7 +140,7 @@ def run_training(
     return report
 
 
-ARCHITECTURES = ("averaged", "residual")
+ARCHITECTURES = ("averaged", "multiscale", "residual")
 
 _IMAGE_SUFFIXES = (".png", ".tif", ".tiff")
 
@@ -217,17 +217,20 @@ def _build(
     initial_weights: str | Path | None,
 ) -> nn.Module:
     from ._averaged import AveragedCNN
+    from ._multiscale import MultiscaleResidualCNN
     from ._residual import ResidualCNN
+
+    classes = {"averaged": AveragedCNN, "multiscale": MultiscaleResidualCNN, "residual": ResidualCNN}
 
     if initial_weights is not None:
         from ._denoisers import load_network
 
         model = load_network(initial_weights)
-        expected = {"residual": ResidualCNN, "averaged": AveragedCNN}[architecture]
+        expected = classes[architecture]
         if not isinstance(model, expected):
             raise ValueError(f"`initial_weights` hold a {type(model).__name__}, not a {expected.__name__}")
         config = model.config()
-        clashes = {key: (value, config[key]) for key, value in sizes.items() if config.get(key) != value}
+        clashes = {key: (value, config.get(key)) for key, value in sizes.items() if config.get(key) != value}
         if clashes:
             raise ValueError(f"`initial_weights` disagree with the requested sizes (requested, stored): {clashes}")
         if isinstance(model, AveragedCNN):
@@ -237,10 +240,10 @@ def _build(
         # fixes the initial weights without changing the caller's random state.
         with torch.random.fork_rng(devices=[]):
             torch.manual_seed(seed)
-            if architecture == "residual":
-                model = ResidualCNN(**sizes)
-            else:
+            if architecture == "averaged":
                 model = AveragedCNN(**sizes, theta_range=theta_range)
+            else:
+                model = classes[architecture](**sizes)
     if isinstance(model, AveragedCNN):
         model.start_normalised_training(seed=seed)
     return model
@@ -267,6 +270,8 @@ def train_denoiser(
     width: int | None = None,
     unshuffle: int | None = None,
     initialisation: str | None = None,
+    widths: Sequence[int] | None = None,
+    blocks: int | None = None,
     theta_range: tuple[float, float] = (0.5, 0.95),
     patch_size: int = 40,
     batch_size: int = 32,
@@ -279,7 +284,7 @@ def train_denoiser(
     progress: bool = True,
     seed: int = 0,
 ) -> TrainingReport:
-    r"""Train a residual or an averaged denoising network on your own images.
+    r"""Train a residual, multi-scale residual or averaged denoising network on your own images.
 
     Parameters
     ----------
@@ -287,8 +292,10 @@ def train_denoiser(
         Clean training images: a folder of PNG/TIFF files or a list of 2-D
         float arrays (see :func:`load_training_images`), with intensities on
         the scale the denoiser will be used at (typically [0, 1]).
-    architecture : {"averaged", "residual"}, optional
+    architecture : {"averaged", "multiscale", "residual"}, optional
         ``"residual"``: :class:`ResidualCNN` (defaults depth 12, width 32).
+        ``"multiscale"``: :class:`MultiscaleResidualCNN` (defaults widths
+        (16, 32, 64, 64), one block per level).
         ``"averaged"``: :class:`AveragedCNN` (defaults depth 8, width 32),
         trained with the spectral normaliser and finished with the exact
         rescaling, so its averagedness can be verified on loading.
@@ -299,13 +306,16 @@ def train_denoiser(
         Budget: stop after this many optimiser steps or this much wall time,
         whichever comes first. At least one is required.
     depth, width : int, optional
-        Network size (defaults as above).
+        Residual and averaged networks: size (defaults as above).
     unshuffle : int, optional
         Residual network only: pixel blocks folded into channels (see
         :class:`ResidualCNN`; default 1).
     initialisation : {"he", "torch-default"}, optional
         Residual network only: initial weights (see :class:`ResidualCNN`;
         default "he").
+    widths, blocks : optional
+        Multi-scale network only: channels per resolution, finest first, and
+        residual blocks per level (see :class:`MultiscaleResidualCNN`).
     theta_range : tuple of float, optional
         Averaged network only: range of ``theta`` drawn during training.
     patch_size, batch_size : int, optional
@@ -319,8 +329,7 @@ def train_denoiser(
     initial_weights : str or pathlib.Path, optional
         Start from these weights (a file of the same architecture, for example
         a shipped one) instead of a fresh initialisation: fine-tuning on your
-        own images. ``depth``, ``width`` and ``unshuffle``, when given, must
-        match the file.
+        own images. Network sizes, when given, must match the file.
     validation_images : folder or sequence of arrays, optional
         Images for the validation printout (64 fixed patches at noise level
         25/255). When omitted the patches are cut from the training images
@@ -374,14 +383,22 @@ def train_denoiser(
         validation_pool, validation_seed = training, seed + 1000
     else:
         validation_pool, validation_seed = load_training_images(validation_images, "validation_images"), seed
-    if architecture != "residual" and (unshuffle is not None or initialisation is not None):
-        raise ValueError("`unshuffle` and `initialisation` apply to the residual architecture only")
-    requested = (("depth", depth), ("width", width), ("unshuffle", unshuffle), ("initialisation", initialisation))
-    sizes = {key: value for key, value in requested if value is not None}
+    options = {
+        "depth": (depth, ("averaged", "residual")),
+        "width": (width, ("averaged", "residual")),
+        "unshuffle": (unshuffle, ("residual",)),
+        "initialisation": (initialisation, ("residual",)),
+        "widths": (None if widths is None else list(widths), ("multiscale",)),
+        "blocks": (blocks, ("multiscale",)),
+    }
+    misplaced = sorted(key for key, (value, owners) in options.items() if value is not None and architecture not in owners)
+    if misplaced:
+        raise ValueError(f"{', '.join(f'`{key}`' for key in misplaced)} do not apply to the {architecture!r} architecture")
+    sizes = {key: value for key, (value, _) in options.items() if value is not None}
     model = _build(architecture, sizes, tuple(theta_range), seed, initial_weights)
     sampler = PatchSampler(training, patch_size, (low, high), seed, low_contrast=low_contrast)
     validation = validation_set(validation_pool, min(64, *(min(im.shape) for im in validation_pool)), 64, seed=validation_seed)
-    if architecture == "residual":
+    if architecture != "averaged":
         predict = _residual_predict
 
         def validate(network: nn.Module, noisy: torch.Tensor) -> torch.Tensor:
