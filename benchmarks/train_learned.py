@@ -1,6 +1,7 @@
 """Reproduce the learned denoiser weights shipped in ``pnpguard/learned/weights``.
 
-Trains the residual CNN and the averaged CNN on bundled scikit-image pictures
+Trains the residual CNN (a :class:`MultiscaleResidualCNN`) and the averaged
+CNN on bundled scikit-image pictures
 plus synthetic frames (never on the held-out pictures camera, moon and brick),
 saves the weights, evaluates them on the held-out pictures at noise levels
 15, 25 and 50 (on the 0-255 scale) and writes the record ``record.json``
@@ -46,21 +47,16 @@ WEIGHTS = Path(__file__).resolve().parents[1] / "src" / "pnpguard" / "learned" /
 RUNS = {
     "residual": {
         "file": "residual_cnn.pt",
-        "network": {"depth": 12, "width": 32, "initialisation": "torch-default"},
-        "stages": [
-            {"steps": 3000, "batch_size": 32, "patch_size": 40, "low_contrast": 0.0, "learning_rate": 1e-3, "seed": 0},
-            {"steps": 6500, "batch_size": 32, "patch_size": 40, "low_contrast": 0.25, "learning_rate": 3e-4, "seed": 1},
-        ],
-    },
-    "multiscale": {
-        "file": "multiscale_cnn.pt",
+        "architecture": "multiscale",
         "network": {"widths": [16, 32, 64, 64], "blocks": 1},
         "stages": [
             {"steps": 18000, "batch_size": 16, "patch_size": 64, "low_contrast": 0.25, "learning_rate": 1e-3, "seed": 0},
+            {"steps": 6000, "batch_size": 8, "patch_size": 96, "low_contrast": 0.25, "learning_rate": 3e-4, "seed": 1},
         ],
     },
     "averaged": {
         "file": "averaged_cnn.pt",
+        "architecture": "averaged",
         "network": {"depth": 8, "width": 32},
         "stages": [
             {"steps": 6000, "batch_size": 16, "patch_size": 40, "low_contrast": 0.25, "learning_rate": 1e-3, "seed": 0},
@@ -97,7 +93,7 @@ def main() -> None:
         target = args.out / (run["file"] if last else f"{Path(run['file']).stem}.stage{index + 1}.pt")
         report = train_denoiser(
             images,
-            architecture=args.which,
+            architecture=run["architecture"],
             **(run["network"] if previous is None else {}),
             initial_weights=previous,
             validation_images=validation,

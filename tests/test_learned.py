@@ -277,6 +277,9 @@ def test_fine_tuning_starts_from_the_given_weights(tmp_path):
         train_denoiser([image], initial_weights=first.path, width=8, **settings)
     with pytest.raises(ValueError, match="initial_weights"):
         train_denoiser([image], architecture="averaged", initial_weights=first.path, **settings)
+    # without `architecture` the file decides: the shipped multi-scale weights fine-tune as they are
+    shipped = train_denoiser([image], initial_weights=RESIDUAL_WEIGHTS, learning_rate=1e-7, **settings)
+    assert isinstance(shipped.model, type(load_network(RESIDUAL_WEIGHTS)))
 
 
 def test_unshuffled_network_folds_and_unfolds_pixels_consistently():

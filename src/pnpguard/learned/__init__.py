@@ -1,7 +1,7 @@
 """Learned denoisers trained on this package's own data and shipped with it.
 
-- :func:`residual_cnn`: a DnCNN-style residual network conditioned on the
-  noise level (no guarantee; measure it).
+- :func:`residual_cnn`: a residual (noise-predicting) network conditioned on
+  the noise level, multi-scale (no guarantee; measure it).
 - :func:`averaged_cnn`: ``(1 - theta) I + theta N`` with ``N`` a convolutional
   network whose layer norms are bounded for every image size; the
   averagedness is re-proved from the weights each time they are loaded.

@@ -204,8 +204,10 @@ def residual_cnn(sigma: float, *, weights: str | Path | None = None) -> LearnedD
 
     Notes
     -----
-    ``D(y) = y - R([y, \sigma])`` with ``R`` a 12-layer, 32-channel
-    convolutional network (see :class:`ResidualCNN`). The training record
+    ``D(y) = y - R([y, \sigma])``. The shipped ``R`` is a
+    :class:`MultiscaleResidualCNN` (residual blocks at four resolutions,
+    widths 16, 32, 64, 64); a file of your own may hold a plain
+    :class:`ResidualCNN` stack instead. The training record
     (images, time, held-out PSNR) is ``weights/record.json`` beside the
     shipped file.
 

@@ -13,7 +13,7 @@ import torch
 from torch import nn
 
 from ._data import PatchSampler
-from ._weights import save_weights
+from ._weights import read_weights, save_weights
 
 #: Noise level (in [0, 1] intensity units) of the validation printout.
 VALIDATION_SIGMA = 25.0 / 255.0
@@ -249,6 +249,15 @@ def _build(
     return model
 
 
+def _architecture_of(path: str | Path) -> str:
+    """The ``architecture`` argument that trains the network stored in ``path``."""
+    names = {"AveragedCNN": "averaged", "MultiscaleResidualCNN": "multiscale", "ResidualCNN": "residual"}
+    stored = read_weights(path)["architecture"]
+    if stored not in names:
+        raise ValueError(f"`initial_weights` hold an unknown architecture {stored!r}")
+    return names[stored]
+
+
 def _residual_predict(model: nn.Module, noisy: torch.Tensor, sigma: torch.Tensor, generator: torch.Generator) -> torch.Tensor:
     return model(noisy, sigma)
 
@@ -262,7 +271,7 @@ def _averaged_predict(model: nn.Module, noisy: torch.Tensor, sigma: torch.Tensor
 def train_denoiser(
     images: str | Path | Sequence[np.ndarray],
     *,
-    architecture: str = "residual",
+    architecture: str | None = None,
     noise_range: tuple[float, float] = (0.0, 55.0 / 255.0),
     steps: int | None = None,
     seconds: float | None = None,
@@ -293,6 +302,8 @@ def train_denoiser(
         float arrays (see :func:`load_training_images`), with intensities on
         the scale the denoiser will be used at (typically [0, 1]).
     architecture : {"averaged", "multiscale", "residual"}, optional
+        Default: the architecture of ``initial_weights`` when given, else
+        ``"residual"``.
         ``"residual"``: :class:`ResidualCNN` (defaults depth 12, width 32).
         ``"multiscale"``: :class:`MultiscaleResidualCNN` (defaults widths
         (16, 32, 64, 64), one block per level).
@@ -364,6 +375,8 @@ def train_denoiser(
     :math:`\sigma \sim U(\text{noise\_range})`, with Adam (Kingma & Ba, ICLR
     2015) and a cosine learning-rate decay (common practice).
     """
+    if architecture is None:
+        architecture = "residual" if initial_weights is None else _architecture_of(initial_weights)
     if architecture not in ARCHITECTURES:
         raise ValueError(f"`architecture` must be one of {sorted(ARCHITECTURES)}, got {architecture!r}")
     if steps is None and seconds is None:
