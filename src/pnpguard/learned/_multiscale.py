@@ -6,7 +6,7 @@ import torch
 import torch.nn.functional as F
 from torch import nn
 
-from ._residual import noise_level_map
+from ._residual import noise_level_map, subtract_predicted_noise
 
 
 class _ResidualBlock(nn.Module):
@@ -125,11 +125,4 @@ class MultiscaleResidualCNN(nn.Module):
         broadcastable to ``(N, 1, H, W)``, in the units of the image. Each
         channel is denoised separately.
         """
-        n, c, h, w = noisy.shape
-        flat = noisy.reshape(n * c, 1, h, w)
-        sigma_t = torch.as_tensor(sigma, dtype=noisy.dtype, device=noisy.device)
-        if sigma_t.ndim == 1 and c > 1:
-            sigma_t = sigma_t.repeat_interleave(c)
-        elif sigma_t.ndim == 4:
-            sigma_t = sigma_t.expand(n, c, h, w).reshape(n * c, 1, h, w)
-        return (flat - self._predict_noise(flat, sigma_t)).reshape(n, c, h, w)
+        return subtract_predicted_noise(self._predict_noise, noisy, sigma)

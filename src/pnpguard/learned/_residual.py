@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import torch
 import torch.nn.functional as F
 from torch import nn
@@ -31,6 +33,39 @@ def noise_level_map(sigma: torch.Tensor | float, like: torch.Tensor) -> torch.Te
     if sigma.ndim == 1:
         sigma = sigma[:, None, None, None]
     return sigma.expand_as(like)
+
+
+def subtract_predicted_noise(
+    predict_noise: Callable[[torch.Tensor, torch.Tensor], torch.Tensor],
+    noisy: torch.Tensor,
+    sigma: torch.Tensor | float,
+) -> torch.Tensor:
+    """``noisy - predict_noise(noisy, sigma)`` with every channel treated as an image.
+
+    Parameters
+    ----------
+    predict_noise : callable
+        Maps ``(B, 1, H, W)`` images and a noise level (scalar, ``(B,)`` or
+        ``(B, 1, H, W)``) to the predicted noise, shaped like the images.
+    noisy : torch.Tensor
+        ``(N, C, H, W)`` images.
+    sigma : float or torch.Tensor
+        A scalar, one value per image (``(N,)``) or a map broadcastable to
+        ``(N, 1, H, W)``.
+
+    Returns
+    -------
+    torch.Tensor
+        ``(N, C, H, W)`` denoised images.
+    """
+    n, c, h, w = noisy.shape
+    flat = noisy.reshape(n * c, 1, h, w)
+    sigma_t = torch.as_tensor(sigma, dtype=noisy.dtype, device=noisy.device)
+    if sigma_t.ndim == 1 and c > 1:
+        sigma_t = sigma_t.repeat_interleave(c)
+    elif sigma_t.ndim == 4:
+        sigma_t = sigma_t.expand(n, c, h, w).reshape(n * c, 1, h, w)
+    return (flat - predict_noise(flat, sigma_t)).reshape(n, c, h, w)
 
 
 class ResidualCNN(nn.Module):
@@ -155,11 +190,4 @@ class ResidualCNN(nn.Module):
         broadcastable to ``(N, 1, H, W)``; it is in the units of the image
         (for example 25/255 for images in [0, 1]).
         """
-        n, c, h, w = noisy.shape
-        flat = noisy.reshape(n * c, 1, h, w)
-        sigma_t = torch.as_tensor(sigma, dtype=noisy.dtype, device=noisy.device)
-        if sigma_t.ndim == 1 and c > 1:
-            sigma_t = sigma_t.repeat_interleave(c)
-        elif sigma_t.ndim == 4:
-            sigma_t = sigma_t.expand(n, c, h, w).reshape(n * c, 1, h, w)
-        return (flat - self._predict_noise(flat, sigma_t)).reshape(n, c, h, w)
+        return subtract_predicted_noise(self._predict_noise, noisy, sigma)
