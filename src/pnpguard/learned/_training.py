@@ -12,7 +12,10 @@ import numpy as np
 import torch
 from torch import nn
 
+from ._averaged import AveragedCNN
 from ._data import PatchSampler
+from ._multiscale import MultiscaleResidualCNN
+from ._residual import ResidualCNN
 from ._weights import read_weights, save_weights
 
 #: Noise level (in [0, 1] intensity units) of the validation printout.
@@ -140,7 +143,12 @@ def run_training(
     return report
 
 
-ARCHITECTURES = ("averaged", "multiscale", "residual")
+#: The ``architecture`` argument of :func:`train_denoiser` and the class it trains.
+ARCHITECTURES: dict[str, type[nn.Module]] = {
+    "averaged": AveragedCNN,
+    "multiscale": MultiscaleResidualCNN,
+    "residual": ResidualCNN,
+}
 
 _IMAGE_SUFFIXES = (".png", ".tif", ".tiff")
 
@@ -216,17 +224,11 @@ def _build(
     seed: int,
     initial_weights: str | Path | None,
 ) -> nn.Module:
-    from ._averaged import AveragedCNN
-    from ._multiscale import MultiscaleResidualCNN
-    from ._residual import ResidualCNN
-
-    classes = {"averaged": AveragedCNN, "multiscale": MultiscaleResidualCNN, "residual": ResidualCNN}
-
     if initial_weights is not None:
         from ._denoisers import load_network
 
         model = load_network(initial_weights)
-        expected = classes[architecture]
+        expected = ARCHITECTURES[architecture]
         if not isinstance(model, expected):
             raise ValueError(f"`initial_weights` hold a {type(model).__name__}, not a {expected.__name__}")
         config = model.config()
@@ -243,7 +245,7 @@ def _build(
             if architecture == "averaged":
                 model = AveragedCNN(**sizes, theta_range=theta_range)
             else:
-                model = classes[architecture](**sizes)
+                model = ARCHITECTURES[architecture](**sizes)
     if isinstance(model, AveragedCNN):
         model.start_normalised_training(seed=seed)
     return model
@@ -251,7 +253,7 @@ def _build(
 
 def _architecture_of(path: str | Path) -> str:
     """The ``architecture`` argument that trains the network stored in ``path``."""
-    names = {"AveragedCNN": "averaged", "MultiscaleResidualCNN": "multiscale", "ResidualCNN": "residual"}
+    names = {cls.__name__: name for name, cls in ARCHITECTURES.items()}
     stored = read_weights(path)["architecture"]
     if stored not in names:
         raise ValueError(f"`initial_weights` hold an unknown architecture {stored!r}")
