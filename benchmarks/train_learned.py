@@ -11,6 +11,11 @@ Usage::
 
     python benchmarks/train_learned.py residual --threads 1
     python benchmarks/train_learned.py averaged --threads 1
+    python benchmarks/train_learned.py gradient-step --threads 1
+
+Every stage checkpoints its state every 250 steps beside its weights file; an
+interrupted run started again with the same command resumes where it stopped
+(finished stages are not retrained).
 
 The two runs may be started at the same time, one thread each (this is how
 the shipped weights were made, on a 2-core machine shared with other jobs;
@@ -37,6 +42,7 @@ from pnpguard.learned._data import (
     default_training_images,
 )
 from pnpguard.learned._evaluate import held_out_table
+from pnpguard.learned._denoisers import load_network
 from pnpguard.learned._training import train_denoiser
 
 WEIGHTS = Path(__file__).resolve().parents[1] / "src" / "pnpguard" / "learned" / "weights"
@@ -52,6 +58,16 @@ RUNS = {
         "stages": [
             {"steps": 18000, "batch_size": 16, "patch_size": 64, "low_contrast": 0.25, "learning_rate": 1e-3, "seed": 0},
             {"steps": 6000, "batch_size": 8, "patch_size": 96, "low_contrast": 0.25, "learning_rate": 3e-4, "seed": 1},
+        ],
+    },
+    "gradient-step": {
+        "file": "gradient_step_cnn.pt",
+        "architecture": "gradient-step",
+        "initial_weights": "residual_cnn.pt",
+        "network": {},
+        "stages": [
+            {"steps": 14000, "batch_size": 16, "patch_size": 64, "low_contrast": 0.25, "learning_rate": 3e-4, "seed": 10},
+            {"steps": 4000, "batch_size": 8, "patch_size": 96, "low_contrast": 0.25, "learning_rate": 1e-4, "seed": 11},
         ],
     },
     "averaged": {
@@ -87,29 +103,43 @@ def main() -> None:
     images = default_training_images()
     validation = [bundled_image(name) for name in VALIDATION_IMAGES]
     start = time.perf_counter()
-    previous, history, stages = None, [], []
+    previous = WEIGHTS / run["initial_weights"] if "initial_weights" in run else None
+    history, stages = [], []
     for index, stage in enumerate(run["stages"]):
         last = index == len(run["stages"]) - 1
         target = args.out / (run["file"] if last else f"{Path(run['file']).stem}.stage{index + 1}.pt")
-        report = train_denoiser(
-            images,
-            architecture=run["architecture"],
-            **(run["network"] if previous is None else {}),
-            initial_weights=previous,
-            validation_images=validation,
-            validate_every=250,
-            save_to=target,
-            progress=True,
-            **stage,
-        )
+        summary = target.with_name(target.name + ".stage.json")
+        if summary.is_file() and target.is_file():
+            # Finished in an earlier, interrupted invocation: reuse its result.
+            done = json.loads(summary.read_text())
+            model, stage_history, stage_entry = load_network(target), done["history"], done["stage"]
+        else:
+            report = train_denoiser(
+                images,
+                architecture=run["architecture"],
+                **(run["network"] if previous is None else {}),
+                initial_weights=previous,
+                validation_images=validation,
+                validate_every=250,
+                save_to=target,
+                checkpoint=target.with_name(target.name + ".checkpoint"),
+                progress=True,
+                **stage,
+            )
+            model = report.model
+            stage_history = [[s, round(v, 3)] for s, v in report.validation_psnr]
+            stage_entry = {**stage, "steps": report.steps, "training_seconds": round(report.seconds, 1)}
+            summary.write_text(json.dumps({"history": stage_history, "stage": stage_entry}) + "\n")
+            target.with_name(target.name + ".checkpoint").unlink(missing_ok=True)
         offset = sum(entry["steps"] for entry in stages)
-        history += [[offset + s, round(v, 3)] for s, v in report.validation_psnr]
-        stages.append({**stage, "steps": report.steps, "training_seconds": round(report.seconds, 1)})
-        if previous is not None:
+        history += [[offset + s, v] for s, v in stage_history]
+        stages.append(stage_entry)
+        if previous is not None and index > 0:
             previous.unlink()  # intermediate weights are not shipped
+            previous.with_name(previous.name + ".stage.json").unlink(missing_ok=True)
         previous = target
+    summary.unlink(missing_ok=True)
     wall = time.perf_counter() - start
-    model = report.model
     if args.which != "averaged":
         table = held_out_table(_denoise_with(model))
     else:

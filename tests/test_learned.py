@@ -330,7 +330,9 @@ def test_multiscale_network_reaches_far_and_handles_any_size():
         both = network(torch.rand(1, 2, 16, 16, generator=torch.Generator().manual_seed(3)), 0.1)
         alone = network(torch.rand(1, 2, 16, 16, generator=torch.Generator().manual_seed(3))[:, 1:], 0.1)
     torch.testing.assert_close(both[:, 1:], alone)
-    assert MultiscaleResidualCNN(widths=(4, 8), blocks=2).config() == {"widths": [4, 8], "blocks": 2}
+    assert MultiscaleResidualCNN(widths=(4, 8), blocks=2).config() == {"widths": [4, 8], "blocks": 2, "activation": "relu"}
+    with pytest.raises(ValueError, match="activation"):
+        MultiscaleResidualCNN(activation="tanh")
     with pytest.raises(ValueError, match="widths"):
         MultiscaleResidualCNN(widths=(4,))
     with pytest.raises(ValueError, match="blocks"):

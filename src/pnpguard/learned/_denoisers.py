@@ -15,6 +15,7 @@ from torch import nn
 from ..denoisers._base import Denoiser, check_sigma
 from ..denoisers._facts import ClaimLike, Fact, as_claim
 from ._averaged import AveragedCNN, LayerBounds
+from ._gradient_step import GradientStepNetwork
 from ._multiscale import MultiscaleResidualCNN
 from ._residual import ResidualCNN
 from ._weights import read_weights
@@ -26,6 +27,7 @@ AVERAGED_WEIGHTS = WEIGHTS_DIR / "averaged_cnn.pt"
 
 _ARCHITECTURES: dict[str, type[nn.Module]] = {
     "AveragedCNN": AveragedCNN,
+    "GradientStepNetwork": GradientStepNetwork,
     "MultiscaleResidualCNN": MultiscaleResidualCNN,
     "ResidualCNN": ResidualCNN,
 }

@@ -14,6 +14,7 @@ from torch import nn
 
 from ._averaged import AveragedCNN
 from ._data import PatchSampler
+from ._gradient_step import GradientStepNetwork
 from ._multiscale import MultiscaleResidualCNN
 from ._residual import ResidualCNN
 from ._weights import read_weights, save_weights
@@ -80,20 +81,30 @@ def run_training(
     validate_every: int,
     progress: bool,
     seed: int,
+    checkpoint: Path | None = None,
 ) -> TrainingReport:
     """Adam on the mean squared error, with a cosine learning-rate decay.
 
     The decay follows the fraction of the budget used, ``max(step / steps,
     elapsed / seconds)``, so a run bounded in seconds also anneals (cosine
     schedule: common practice). Training stops when either budget is spent.
+
+    With ``checkpoint``, the whole training state (weights, optimiser, random
+    generators, step, elapsed time, history) is written there at every
+    validation, and a run started with an existing checkpoint resumes from it:
+    an interrupted run continues where it stopped and, since the random
+    streams are restored, draws the same patches it would have drawn.
     """
     from tqdm.auto import tqdm
 
     generator = torch.Generator().manual_seed(seed + 1)
     optimiser = torch.optim.Adam(model.parameters(), lr=learning_rate)
     report = TrainingReport(model=model, steps=0, seconds=0.0)
-    start = time.perf_counter()
-    bar = tqdm(total=steps, disable=not progress, unit="step", leave=False)
+    offset = 0.0
+    if checkpoint is not None and Path(checkpoint).is_file():
+        offset = _resume(Path(checkpoint), model, optimiser, generator, sampler, report)
+    start = time.perf_counter() - offset
+    bar = tqdm(total=steps, initial=report.steps, disable=not progress, unit="step", leave=False)
     running, count = 0.0, 0
     model.train()
     while True:
@@ -137,15 +148,70 @@ def run_training(
                 )
                 if progress:
                     bar.write(message)
+            if checkpoint is not None:
+                _save_checkpoint(Path(checkpoint), model, optimiser, generator, sampler, report, time.perf_counter() - start)
     bar.close()
     model.eval()
     report.seconds = time.perf_counter() - start
     return report
 
 
+_CHECKPOINT_FORMAT = "pnpguard-training-checkpoint"
+
+
+def _save_checkpoint(
+    path: Path,
+    model: nn.Module,
+    optimiser: torch.optim.Optimizer,
+    generator: torch.Generator,
+    sampler: PatchSampler,
+    report: TrainingReport,
+    elapsed: float,
+) -> None:
+    """Write the training state to ``path`` atomically (a temporary file renamed over it)."""
+    state = {
+        "format": _CHECKPOINT_FORMAT,
+        "model": model.state_dict(),
+        "optimiser": optimiser.state_dict(),
+        "generator": generator.get_state(),
+        "sampler_generator": sampler.generator.get_state(),
+        "steps": report.steps,
+        "elapsed": elapsed,
+        "losses": list(report.losses),
+        "validation_psnr": [list(entry) for entry in report.validation_psnr],
+    }
+    path.parent.mkdir(parents=True, exist_ok=True)
+    temporary = path.with_name(path.name + ".partial")
+    torch.save(state, temporary)
+    temporary.replace(path)
+
+
+def _resume(
+    path: Path,
+    model: nn.Module,
+    optimiser: torch.optim.Optimizer,
+    generator: torch.Generator,
+    sampler: PatchSampler,
+    report: TrainingReport,
+) -> float:
+    """Restore a checkpoint written by :func:`_save_checkpoint`; return the elapsed seconds."""
+    state = torch.load(path, map_location="cpu", weights_only=True)
+    if not isinstance(state, dict) or state.get("format") != _CHECKPOINT_FORMAT:
+        raise ValueError(f"`checkpoint` {str(path)!r} is not a training checkpoint")
+    model.load_state_dict(state["model"])
+    optimiser.load_state_dict(state["optimiser"])
+    generator.set_state(state["generator"])
+    sampler.generator.set_state(state["sampler_generator"])
+    report.steps = int(state["steps"])
+    report.losses = [float(v) for v in state["losses"]]
+    report.validation_psnr = [(int(s), float(v)) for s, v in state["validation_psnr"]]
+    return float(state["elapsed"])
+
+
 #: The ``architecture`` argument of :func:`train_denoiser` and the class it trains.
 ARCHITECTURES: dict[str, type[nn.Module]] = {
     "averaged": AveragedCNN,
+    "gradient-step": GradientStepNetwork,
     "multiscale": MultiscaleResidualCNN,
     "residual": ResidualCNN,
 }
@@ -229,6 +295,8 @@ def _build(
 
         model = load_network(initial_weights)
         expected = ARCHITECTURES[architecture]
+        if expected is GradientStepNetwork and isinstance(model, MultiscaleResidualCNN):
+            model = GradientStepNetwork.from_residual(model)
         if not isinstance(model, expected):
             raise ValueError(f"`initial_weights` hold a {type(model).__name__}, not a {expected.__name__}")
         config = model.config()
@@ -292,6 +360,7 @@ def train_denoiser(
     validation_images: str | Path | Sequence[np.ndarray] | None = None,
     validate_every: int = 100,
     save_to: str | Path | None = None,
+    checkpoint: str | Path | None = None,
     progress: bool = True,
     seed: int = 0,
 ) -> TrainingReport:
@@ -303,7 +372,7 @@ def train_denoiser(
         Clean training images: a folder of PNG/TIFF files or a list of 2-D
         float arrays (see :func:`load_training_images`), with intensities on
         the scale the denoiser will be used at (typically [0, 1]).
-    architecture : {"averaged", "multiscale", "residual"}, optional
+    architecture : {"averaged", "gradient-step", "multiscale", "residual"}, optional
         Default: the architecture of ``initial_weights`` when given, else
         ``"residual"``.
         ``"residual"``: :class:`ResidualCNN` (defaults depth 12, width 32).
@@ -312,6 +381,12 @@ def train_denoiser(
         ``"averaged"``: :class:`AveragedCNN` (defaults depth 8, width 32),
         trained with the spectral normaliser and finished with the exact
         rescaling, so its averagedness can be verified on loading.
+        ``"gradient-step"``: :class:`GradientStepNetwork`, ``D = I - grad g``
+        with ``g = ||R(x)||^2 / 2`` and ``R`` a softplus multi-scale network
+        (same defaults as ``"multiscale"``). ``initial_weights`` may also be
+        a multi-scale residual file (the shipped ``RESIDUAL_WEIGHTS``): its
+        ReLUs become softplus and the network is fine-tuned as a
+        gradient-step denoiser.
     noise_range : tuple of float, optional
         ``(low, high)`` of the Gaussian noise standard deviation, drawn
         uniformly per patch.
@@ -352,6 +427,11 @@ def train_denoiser(
     save_to : str or pathlib.Path, optional
         Where to save the weights (same format as the shipped weights; load
         them with :func:`load_denoiser`).
+    checkpoint : str or pathlib.Path, optional
+        A file where the whole training state is saved at every validation.
+        If it exists when training starts, training resumes from it (same
+        arguments expected), so an interrupted run loses at most
+        ``validate_every`` steps. Delete it to start afresh.
     progress : bool, optional
         Show a tqdm progress bar and print each validation.
     seed : int, optional
@@ -403,8 +483,8 @@ def train_denoiser(
         "width": (width, ("averaged", "residual")),
         "unshuffle": (unshuffle, ("residual",)),
         "initialisation": (initialisation, ("residual",)),
-        "widths": (None if widths is None else list(widths), ("multiscale",)),
-        "blocks": (blocks, ("multiscale",)),
+        "widths": (None if widths is None else list(widths), ("gradient-step", "multiscale")),
+        "blocks": (blocks, ("gradient-step", "multiscale")),
     }
     misplaced = sorted(key for key, (value, owners) in options.items() if value is not None and architecture not in owners)
     if misplaced:
@@ -439,6 +519,7 @@ def train_denoiser(
         validate_every=validate_every,
         progress=progress,
         seed=seed,
+        checkpoint=None if checkpoint is None else Path(checkpoint),
     )
     if architecture == "averaged":
         model.finish_normalised_training()
