@@ -41,7 +41,7 @@ try:
     pg.forward_backward(fidelity, denoiser, reference=truth, data_range=1.0)
 except pg.Refused as refusal:
     print(refusal)
-    factor = refusal.relaxation
+    factor = refusal.relaxed_factor
 
 # %% [markdown]
 # ## The repair: the suggested relaxation, checked again

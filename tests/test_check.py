@@ -178,9 +178,10 @@ def test_cross_check_confirms_true_structure_and_refutes_false_structure():
 
 
 def test_user_claims_are_recorded_not_trusted():
+    # A claim the search contradicts beyond rounding is reported as refuted.
     denoiser = pg.as_denoiser(lambda z: z - 0.2 * _laplacian(z), claims=[("averaged", 0.5)])
     report = pg.check_denoiser(denoiser, SAMPLE)
-    assert report.verdict == "estimated"
+    assert report.verdict == "refuted" and report.refuted == "claim"
     assert report.claims and not report.claims[0].verified
     assert any("contradicted" in note for note in report.notes)  # true theta is 0.8
 

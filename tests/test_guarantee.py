@@ -183,7 +183,7 @@ def test_douglas_rachford_refuses_on_a_null_space_with_computed_suggestions():
     text = "\n".join(refusal.suggestions)
     assert "switch to forward_backward" in text
     # theta 0.8 * 1.05 = 0.84; relaxation s = floor(1000 * 0.5 / 0.84) / 1000 = 0.595.
-    assert "relaxed(denoiser, 0.595)" in text and refusal.relaxation == 0.595
+    assert "relaxed(denoiser, 0.595)" in text and refusal.relaxed_factor == 0.595
 
 
 def test_expansive_denoiser_is_refused_and_relaxation_is_not_offered():
@@ -191,7 +191,7 @@ def test_expansive_denoiser_is_refused_and_relaxation_is_not_offered():
     with pytest.raises(pg.Refused) as caught:
         pg.admissible("forward_backward", _mask_fidelity(), report)
     assert "expansive" in caught.value.reasons[0]
-    assert any("relaxation cannot repair" in s for s in caught.value.suggestions)
+    assert any("relaxing the denoiser cannot repair" in s for s in caught.value.suggestions)
 
 
 def test_residual_route_for_forward_backward_with_strong_convexity():
@@ -206,7 +206,7 @@ def test_residual_route_for_forward_backward_with_strong_convexity():
 
 
 def test_bad_arguments_are_named():
-    with pytest.raises(ValueError, match=r"\['admm', 'douglas_rachford', 'forward_backward'\]"):
+    with pytest.raises(ValueError, match=r"\['admm', 'douglas_rachford', 'dr', 'fb', 'forward_backward'\]"):
         pg.admissible("gradient", _mask_fidelity(), _report(0.5))
     with pytest.raises(ValueError, match="`margin`"):
         pg.admissible("admm", _mask_fidelity(), _report(0.5), margin=2)
@@ -217,3 +217,95 @@ def test_bad_arguments_are_named():
 def test_guarantee_text_names_the_theorem():
     text = str(pg.admissible("forward_backward", _mask_fidelity(), _report(0.5)))
     assert "Combettes & Yamada" in text and "PROVED" in text
+
+
+# ------------------------------------------------------------ routes as data
+def test_every_algorithm_has_routes_and_every_route_names_known_algorithms():
+    from pnpguard.guarantee import ROUTES
+    from pnpguard.guarantee._routes import find_route, routes_for
+    from pnpguard.splitting import ALGORITHMS
+
+    for name in ALGORITHMS:
+        assert routes_for(name)
+    for route in ROUTES:
+        assert set(route.algorithms) <= set(ALGORITHMS)
+    with pytest.raises(ValueError, match="no theorem route covers"):
+        routes_for("gradient_descent")
+    with pytest.raises(ValueError, match=r"`route` must be one of"):
+        find_route("averaged", "douglas_rachford")
+
+
+def test_a_new_route_is_one_record():
+    # A toy theorem (not shipped): any denoiser with theta < 0.9 admits forward-backward
+    # with step 1/(2L) and relaxation 1/2, the map being 0.9-averaged. It only has to be
+    # added to the table; admissible(), map_constant and the printout follow.
+    from pnpguard.guarantee import ROUTES, IterationMap, Route, Window
+
+    toy = Route(
+        name="toy",
+        algorithms=("forward_backward",),
+        theorem="toy theorem for the test",
+        applies=lambda c, algorithm: Window(0.5 / c.lipschitz, (0.0, 1.0 / c.lipschitz), 0.5)
+        if c.theta < 0.9
+        else "toy route: needs theta < 0.9",
+        iteration_map=lambda c, step: IterationMap("averaged", 0.9, (0.0, 1.0)),
+        relaxed=lambda relaxation, constant: relaxation * constant,
+    )
+    fidelity = _mask_fidelity()
+    guarantee = pg.admissible("forward_backward", fidelity, _report(0.95), routes=(toy, *ROUTES))
+    assert guarantee.route == "averaged"  # the toy route does not apply at theta 0.95
+    guarantee = pg.admissible("forward_backward", fidelity, _report(0.5), routes=(toy, *ROUTES))
+    assert guarantee.route == "toy" and guarantee.step == pytest.approx(0.5 / fidelity.lipschitz)
+    assert guarantee.map_constant(guarantee.step, 0.5) == ("averaged", pytest.approx(0.45))
+    assert "toy theorem" in str(guarantee)
+    with pytest.raises(pg.Refused, match="toy route: needs theta < 0.9"):
+        pg.admissible("forward_backward", fidelity, _report(1.5, lipschitz=1.2, verdict="refuted",
+                                                            refuted="nonexpansiveness"), routes=(toy,))
+
+
+def test_algorithms_answer_to_their_short_names():
+    from pnpguard.splitting import algorithm
+
+    assert algorithm("fb").name == "forward_backward" and algorithm("dr").name == "douglas_rachford"
+    guarantee = pg.admissible("dr", _mask_fidelity(), _report(0.5))
+    assert guarantee.algorithm == "douglas_rachford"
+
+
+# ------------------------------------------------------------ claims stand unless refuted
+def _box_projection(x):
+    return np.clip(x, 0.0, 1.0)
+
+
+def _soft_threshold(x):
+    return np.sign(x) * np.maximum(np.abs(x) - 0.05, 0.0)
+
+
+@pytest.mark.parametrize("function", [_box_projection, _soft_threshold])
+def test_an_unrefuted_claim_stands_and_the_margin_does_not_override_it(function):
+    # A projection onto a box and soft thresholding are proximal operators (of an
+    # indicator and of t ||.||_1), hence firmly nonexpansive: theta = 1/2 exactly
+    # (Bauschke & Combettes 2017, Prop. 12.28). The search finds 0.5; the 5 % margin
+    # would make it 0.525 and refuse Douglas-Rachford on a mask (mu = 0, needs 1/2).
+    shape = (24, 24)
+    truth = np.zeros(shape)
+    truth[RNG.random(shape) < 0.1] = 1.0
+    op = pg.Convolution(pg.gaussian_psf(5, 1.0), shape)
+    sample = op(truth)
+    claimed = pg.as_denoiser(function, claims=["proximal"], backend="numpy")
+    report = pg.check_denoiser(claimed, sample, budget=60)
+    assert report.verdict == "estimated" and report.theta <= 0.5 + 1e-6
+    guarantee = pg.admissible("douglas_rachford", _mask_fidelity(shape), report)
+    assert guarantee.route == "firmly nonexpansive" and guarantee.status == "conditional"
+    assert any("the user's claim" in text for text in guarantee.assumptions)
+    unclaimed = pg.check_denoiser(pg.as_denoiser(function, backend="numpy"), sample, budget=60)
+    with pytest.raises(pg.Refused):  # without the claim the margin applies
+        pg.admissible("douglas_rachford", _mask_fidelity(shape), unclaimed)
+
+
+def test_zero_strong_convexity_up_to_rounding_is_printed_as_zero():
+    fidelity = _mask_fidelity()
+    report = _report(0.9, residual=3.0)
+    with pytest.raises(pg.Refused) as caught:
+        pg.admissible("douglas_rachford", fidelity, report)
+    text = str(caught.value)
+    assert "mu = 0" in text and "e-1" not in text

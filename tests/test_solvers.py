@@ -336,3 +336,32 @@ def test_an_optimistic_estimate_is_caught_by_the_monitor_with_a_witness():
     statistic = float(torch.sum(r * r) / (2 * torch.sum(a * r)))
     assert statistic == pytest.approx(broken[0].value, rel=1e-6)
     assert statistic > result.guarantee.constant
+
+
+def test_callback_sees_the_iteration_that_converges():
+    op, _, y = _blur_problem()
+    fidelity = pg.LeastSquares(op, y, sigma=0.5)
+    seen = []
+    result = pg.forward_backward(fidelity, _soft(0.02), tol=1e-3, callback=lambda s: seen.append(s.iteration))
+    assert result.converged
+    assert seen[-1] == result.iterations
+
+
+def test_unknown_option_is_named_with_a_hint():
+    op, _, y = _blur_problem()
+    with pytest.raises(TypeError, match="did you mean 'max_iter'"):
+        pg.forward_backward(pg.LeastSquares(op, y), _soft(0.02), max_iters=3)
+    import inspect
+
+    assert "max_iter" in inspect.signature(pg.admm).parameters
+
+
+def test_import_works_without_docstrings():
+    # Under python -OO every __doc__ is None; the package must still import.
+    import os
+    import subprocess
+    import sys
+
+    env = dict(os.environ, PYTHONPATH=os.pathsep.join(sys.path))
+    done = subprocess.run([sys.executable, "-OO", "-c", "import pnpguard"], env=env, capture_output=True, text=True)
+    assert done.returncode == 0, done.stderr

@@ -2,5 +2,6 @@
 
 from ._check import DEFAULT_BUDGET, check_denoiser
 from ._report import CheckReport, Witness
+from ._structure import claimed_constants
 
-__all__ = ["DEFAULT_BUDGET", "CheckReport", "Witness", "check_denoiser"]
+__all__ = ["DEFAULT_BUDGET", "CheckReport", "Witness", "check_denoiser", "claimed_constants"]

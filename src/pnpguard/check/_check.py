@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 import time
+from dataclasses import replace
 from collections.abc import Sequence
 from typing import Any
 
@@ -33,11 +34,10 @@ def _split_samples(sample: Any) -> tuple[list[torch.Tensor], ArrayKind]:
             [tensor.reshape(1, 1, *tensor.shape)] if tensor.ndim == 2 else list(tensor.split(1))
         )
         kinds.append(kind)
-    shapes = {tuple(t.shape[1:]) for t in tensors}
+    # Images of different sizes are fine: each is a base point of its own.
     dtypes = {t.dtype for t in tensors}
     if len(dtypes) > 1:
         raise ValueError(f"`sample` images must share one dtype, got {sorted(map(str, dtypes))}")
-    del shapes  # images of different sizes are fine: each is a base point of its own
     return [t.clone() for t in tensors], kinds[0]
 
 
@@ -123,6 +123,7 @@ def check_denoiser(
             f"{budget // 10}; pass fewer images or a larger budget"
         )
     start = time.perf_counter()
+    strength = {"sigma": denoiser.sigma, "lowest_sigma": denoiser.lowest_sigma}
     claims = tuple(f for f in denoiser.facts if not f.verified)
     structure = structural_constants(denoiser.facts)
     if structure is not None and not cross_check:
@@ -140,6 +141,7 @@ def check_denoiser(
             facts=structure.facts,
             claims=claims,
             tolerance=structure.tolerance,
+            **strength,
         )
     search = _run_search(denoiser, samples, budget, seed)
     seconds = time.perf_counter() - start
@@ -154,19 +156,23 @@ def check_denoiser(
         if denoiser.differentiable
         else "derivative-free (1+1)-ES ascent"
     )
-    notes = list(_claim_notes(claims, values))
+    contradictions = _claim_notes(claims, values)
+    notes = list(contradictions)
     if not search.informative_found and not search.expansive_found:
         notes.append(
             "on every probed pair the denoiser acted as the identity up to rounding: theta = 0 "
             "says only that; the denoiser may be too weak to do anything at this strength"
         )
     if structure is not None:
-        return _cross_checked(denoiser, structure, search, witnesses, values, claims, seconds, method, notes)
+        report = _cross_checked(denoiser, structure, search, witnesses, values, claims, seconds, method, notes)
+        return replace(report, **strength)
     refuted = None
     if search.expansive_found:
         refuted = "nonexpansiveness"
     elif values["theta"] >= 1.0 - NOT_AVERAGED_SLACK:
         refuted = "averagedness"
+    elif contradictions:
+        refuted = "claim"
     if refuted is None:
         notes.append(
             "estimates are lower bounds from a finite search: the true constants may be larger"
@@ -184,6 +190,7 @@ def check_denoiser(
         method=method,
         claims=claims,
         notes=tuple(notes),
+        **strength,
     )
 
 
@@ -212,12 +219,18 @@ def _run_search(denoiser: Denoiser, samples: list[torch.Tensor], budget: int, se
     return search
 
 
+#: Relative excess over a claimed constant that counts as a contradiction (the pair
+#: statistics are computed in float64 from outputs with a rounding allowance already).
+CLAIM_SLACK = 1e-6
+
+
 def _claim_notes(claims, values) -> list[str]:
+    """One note per claimed constant that a pair exceeds beyond :data:`CLAIM_SLACK`."""
     notes = []
     for claim in claims:
         for name in QUANTITIES:
             stated = getattr(claim, name)
-            if stated is not None and values[name] > stated * (1 + 1e-9):
+            if stated is not None and values[name] > stated * (1 + CLAIM_SLACK):
                 notes.append(
                     f"the user's claim {name} <= {stated:.6g} is contradicted by a pair "
                     f"attaining {values[name]:.6g}"

@@ -79,8 +79,9 @@ class CheckReport:
         ``"proved"``: the constants follow from the denoiser's verified
         structure (:attr:`facts`). ``"estimated"``: empirical lower bounds from
         search; no counterexample found. ``"refuted"``: a concrete pair shows
-        that ``D`` is not averaged (:attr:`refuted` says ``"averagedness"``) or
-        even expansive (``"nonexpansiveness"``).
+        that ``D`` is not averaged (:attr:`refuted` says ``"averagedness"``),
+        even expansive (``"nonexpansiveness"``), or that a user's claim is
+        false (``"claim"``).
     refuted : str or None
         What a refutation disproves.
     witnesses : dict
@@ -102,6 +103,11 @@ class CheckReport:
         error bound per pixel of each evaluation against the exact map.
     notes : tuple of str
         Anything else the user should know (e.g. a claim contradicted by a pair).
+    sigma : float or None
+        The denoiser's strength when it declares one.
+    lowest_sigma : float
+        The lowest strength the denoiser accepts (0 unless it says otherwise,
+        e.g. a network's trained range).
     """
 
     denoiser: str
@@ -118,6 +124,8 @@ class CheckReport:
     claims: tuple[Fact, ...] = ()
     tolerance: float = 0.0
     notes: tuple[str, ...] = ()
+    sigma: float | None = None
+    lowest_sigma: float = 0.0
 
     @property
     def witness(self) -> Witness | None:

@@ -32,11 +32,24 @@ def structural_constants(facts: tuple[Fact, ...]) -> StructuralConstants | None:
     fact gives exact values: ``theta = (1 - min h) / 2`` when the spectrum lies
     in ``[-1, 1]`` (THEORY.md, section 2), otherwise the map is expansive.
     """
-    verified = tuple(f for f in facts if f.verified)
-    if not verified:
+    return _combine(tuple(f for f in facts if f.verified))
+
+
+def claimed_constants(claims: tuple[Fact, ...]) -> StructuralConstants | None:
+    """The constants the user's (unverified) claims would imply; None without claims.
+
+    Combined exactly as :func:`structural_constants` combines verified facts.
+    The result is an assumption, never a proof: a guarantee built on it is
+    conditional on the claims.
+    """
+    return _combine(tuple(claims))
+
+
+def _combine(facts: tuple[Fact, ...]) -> StructuralConstants | None:
+    if not facts:
         return None
     theta = lipschitz = residual = math.inf
-    for fact in verified:
+    for fact in facts:
         fact_theta = fact.theta
         if fact.kind == "linear_symmetric" and fact_theta is None:
             low, high = fact.spectrum
@@ -50,6 +63,6 @@ def structural_constants(facts: tuple[Fact, ...]) -> StructuralConstants | None:
         theta=theta,
         lipschitz=lipschitz,
         residual_lipschitz=residual,
-        facts=verified,
-        tolerance=max(f.tolerance for f in verified),
+        facts=facts,
+        tolerance=max(f.tolerance for f in facts),
     )

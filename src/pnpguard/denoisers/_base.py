@@ -91,7 +91,13 @@ class Denoiser(abc.ABC):
     ``(H, W)`` or ``(N, C, H, W)``; the result has the same shape, dtype and
     device; ``t`` is never written into; no ``torch.no_grad`` inside (the
     entry points decide about autograd).
+
+    ``lowest_sigma`` is the lowest strength the denoiser accepts (0 unless a
+    subclass knows better, e.g. a network's trained range); a refusal
+    suggests lowering the strength only above it.
     """
+
+    lowest_sigma: float = 0.0
 
     def __init__(
         self,

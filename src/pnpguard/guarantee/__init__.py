@@ -1,6 +1,11 @@
-"""Step-size guarantees from published theorems, or a refusal with reasons."""
+"""Step-size guarantees from published theorems, or a refusal with reasons.
 
-from ._admissible import ALGORITHMS, DEFAULT_MARGIN, Guarantee, admissible
+- :func:`admissible`: admissible parameters for an algorithm, or :class:`Refused`.
+- :data:`ROUTES`: the theorem table (one :class:`Route` record per result).
+"""
+
+from ._admissible import DEFAULT_MARGIN, Guarantee, admissible
 from ._refused import Refused
+from ._routes import ROUTES, Constants, IterationMap, Route, Window
 
-__all__ = ["ALGORITHMS", "DEFAULT_MARGIN", "Guarantee", "Refused", "admissible"]
+__all__ = ["DEFAULT_MARGIN", "ROUTES", "Constants", "Guarantee", "IterationMap", "Refused", "Route", "Window", "admissible"]

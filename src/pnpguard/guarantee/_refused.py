@@ -16,9 +16,10 @@ class Refused(Exception):
         Concrete, computed ways out (another algorithm with its admissible
         step, a relaxed denoiser with the factor that makes the case
         admissible, a lower denoiser strength).
-    relaxation : float or None
+    relaxed_factor : float or None
         The factor ``s`` of the suggested relaxed denoiser ``(1 - s) I + s D``
-        (:func:`pnpguard.relaxed`), when relaxation can repair the case.
+        (:func:`pnpguard.relaxed`), when relaxing the denoiser can repair the
+        case. (Not the iteration's relaxation ``lam``.)
     """
 
     def __init__(
@@ -26,11 +27,11 @@ class Refused(Exception):
         reasons: Sequence[str],
         suggestions: Sequence[str] = (),
         *,
-        relaxation: float | None = None,
+        relaxed_factor: float | None = None,
     ):
         self.reasons = tuple(reasons)
         self.suggestions = tuple(suggestions)
-        self.relaxation = relaxation
+        self.relaxed_factor = relaxed_factor
         super().__init__(self._text())
 
     def _text(self) -> str:

@@ -2,6 +2,7 @@
 
 from ._algorithms import admm, douglas_rachford, forward_backward
 from ._monitor import Flag, Policy
+from ._options import RunOptions
 from ._plots import plot_run
 from ._result import IterationState, Reconstruction
 
@@ -10,6 +11,7 @@ __all__ = [
     "IterationState",
     "Policy",
     "Reconstruction",
+    "RunOptions",
     "admm",
     "douglas_rachford",
     "forward_backward",

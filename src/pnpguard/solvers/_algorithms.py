@@ -4,31 +4,21 @@ from __future__ import annotations
 
 import math
 import time
-from collections.abc import Callable
 from typing import Any
 
 import numpy as np
 import torch
 
-from .._arrays import ArrayLike, from_tensor, to_tensor
-from ..check import DEFAULT_BUDGET, CheckReport, check_denoiser
+from .._arrays import from_tensor, to_tensor
+from ..check import CheckReport, check_denoiser
 from ..denoisers import as_denoiser
 from ..fidelity import LeastSquares
-from ..guarantee import DEFAULT_MARGIN, Guarantee, admissible
+from ..guarantee import Guarantee, admissible
 from ..metrics import psnr, ssim
-from ._monitor import Flag, Monitor, Policy, norm
+from ..splitting import Algorithm, algorithm as algorithm_record
+from ._monitor import Flag, Monitor, norm
+from ._options import RunOptions, solver_signature
 from ._result import IterationState, Reconstruction
-from ._schemes import DouglasRachford, ForwardBackward
-
-Callback = Callable[[IterationState], Any]
-
-
-def _positive(value: Any, name: str) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not (
-        math.isfinite(value) and value > 0
-    ):
-        raise ValueError(f"`{name}` must be a positive finite number, got {value!r}")
-    return float(value)
 
 
 def _image(value: Any, name: str, fidelity: LeastSquares) -> torch.Tensor:
@@ -49,47 +39,35 @@ def default_start(fidelity: LeastSquares) -> torch.Tensor:
 
 
 class _Run:
-    """Shared set-up and loop of the three solvers."""
+    """Shared set-up, guard and loop of the solvers."""
 
-    def __init__(self, algorithm, fidelity, denoiser, options):
+    def __init__(self, algorithm: Algorithm, fidelity: LeastSquares, denoiser: Any, options: RunOptions):
         if not isinstance(fidelity, LeastSquares):
             raise TypeError(f"`fidelity` must be a pnpguard LeastSquares, got {type(fidelity).__name__}")
         self.algorithm = algorithm
         self.fidelity = fidelity
         self.denoiser = as_denoiser(denoiser)
-        self.options = options
-        o = options
-        if isinstance(o["max_iter"], bool) or not isinstance(o["max_iter"], int) or o["max_iter"] < 1:
-            raise ValueError(f"`max_iter` must be a positive integer, got {o['max_iter']!r}")
-        if not (isinstance(o["tol"], (int, float)) and math.isfinite(o["tol"]) and o["tol"] >= 0):
-            raise ValueError(f"`tol` must be a non-negative number, got {o['tol']!r}")
-        if o["callback"] is not None and not callable(o["callback"]):
-            raise TypeError("`callback` must be callable")
-        self.policy = o["policy"] if o["policy"] is not None else Policy()
-        if not isinstance(self.policy, Policy):
-            raise TypeError(f"`policy` must be a pnpguard Policy, got {type(self.policy).__name__}")
-        self.x0 = default_start(fidelity) if o["x0"] is None else _image(o["x0"], "x0", fidelity)
+        self.options = o = options
+        self.policy = o.policy
+        self.x0 = default_start(fidelity) if o.x0 is None else _image(o.x0, "x0", fidelity)
         self.reference = None
-        if o["reference"] is not None:
-            self.reference = _image(o["reference"], "reference", fidelity)
+        if o.reference is not None:
+            self.reference = _image(o.reference, "reference", fidelity)
             span = float(self.reference.max() - self.reference.min())
-            given = o["data_range"]
-            self.data_range = (span if span > 0 else 1.0) if given is None else _positive(given, "data_range")
-        self.step = None if o["step"] is None else _positive(o["step"], "step")
-        self.relaxation = None if o["relaxation"] is None else _positive(o["relaxation"], "relaxation")
+            self.data_range = (span if span > 0 else 1.0) if o.data_range is None else o.data_range
+        self.step = o.step
+        self.relaxation = o.relaxation
 
     # ---------------------------------------------------------------- guard
     def guard(self) -> tuple[CheckReport | None, Guarantee | None, float]:
         o = self.options
-        report = o["report"]
-        if report is not None and not isinstance(report, CheckReport):
-            raise TypeError(f"`report` must be a CheckReport, got {type(report).__name__}")
+        report = o.report
         if report is not None and report.denoiser != self.denoiser.name:
             raise ValueError(
                 f"`report` checks denoiser {report.denoiser!r} but the run uses "
                 f"{self.denoiser.name!r}; check this denoiser (or give both the same name)"
             )
-        if not o["guard"]:
+        if not o.guard:
             if self.step is None:
                 self.step = 1.0 / self.fidelity.lipschitz
             if self.relaxation is None:
@@ -98,10 +76,10 @@ class _Run:
         seconds = 0.0
         if report is None:
             start = time.perf_counter()
-            sample = self.x0 if o["sample"] is None else o["sample"]
-            report = check_denoiser(self.denoiser, sample, budget=o["check_budget"], seed=o["seed"])
+            sample = self.x0 if o.sample is None else o.sample
+            report = check_denoiser(self.denoiser, sample, budget=o.check_budget, seed=o.seed)
             seconds = time.perf_counter() - start
-        guarantee = admissible(self.algorithm, self.fidelity, report, margin=o["margin"])
+        guarantee = admissible(self.algorithm.name, self.fidelity, report, margin=o.margin)
         if self.step is None:
             self.step = guarantee.step
         if self.relaxation is None:
@@ -110,11 +88,11 @@ class _Run:
         return report, guarantee, seconds
 
     # ----------------------------------------------------------------- loop
-    def run(self, scheme_type, start_from: Callable[[torch.Tensor, float], torch.Tensor]) -> Reconstruction:
-        """Guard, then iterate ``scheme_type`` from ``start_from(x0, step)``."""
+    def run(self) -> Reconstruction:
+        """Guard, then iterate the algorithm's map from its start."""
         report, guarantee, check_seconds = self.guard()
-        scheme = scheme_type(self.fidelity, self.denoiser, self.step)
-        start = start_from(self.x0, self.step)
+        scheme = self.algorithm.scheme(self.fidelity, self.denoiser, self.step)
+        start = self.algorithm.start(self.fidelity, self.x0, self.step)
         o = self.options
         certified = (None, math.nan) if guarantee is None else guarantee.map_constant(self.step, self.relaxation)
         scale = max(norm(start), norm(self.fidelity.y), 1e-12)
@@ -131,10 +109,10 @@ class _Run:
         metrics: dict[str, list[float]] = {"psnr": [], "ssim": []} if self.reference is not None else {}
         v, estimate = start, start
         back_offs, converged, message = 0, False, "reached max_iter"
-        bar = _progress(o["progress"], o["max_iter"], self.algorithm)
+        bar = _progress(o.progress, o.max_iter, self.algorithm.name)
         begin = time.perf_counter()
         size = norm(start)
-        for iteration in range(o["max_iter"]):
+        for iteration in range(o.max_iter):
             image, candidate_estimate = scheme(v)
             step = relaxation * (image - v)
             candidate = v + step
@@ -170,14 +148,14 @@ class _Run:
             if bar is not None:
                 bar.update(1)
                 bar.set_postfix(residual=f"{relative[-1]:.2e}")
-            if relative[-1] <= o["tol"]:
-                converged, message = True, f"relative residual {relative[-1]:.2e} <= tol {o['tol']:g}"
-                break
-            if o["callback"] is not None:
+            if o.callback is not None:
                 state = IterationState(len(relative), estimate, v, residual, relative[-1])
-                if o["callback"](state) is True:
+                if o.callback(state) is True:
                     message = f"stopped by the callback after {len(relative)} iterations"
                     break
+            if relative[-1] <= o.tol:
+                converged, message = True, f"relative residual {relative[-1]:.2e} <= tol {o.tol:g}"
+                break
         seconds = time.perf_counter() - begin
         if bar is not None:
             bar.close()
@@ -186,7 +164,7 @@ class _Run:
             notes = (f"relaxation lowered from {self.relaxation:g} to {relaxation:g} by back-offs",)
         return Reconstruction(
             x=from_tensor(estimate, self.fidelity.kind),
-            algorithm=self.algorithm,
+            algorithm=self.algorithm.name,
             converged=converged,
             iterations=len(relative),
             message=message,
@@ -227,53 +205,26 @@ def _progress(progress: Any, total: int, name: str):
     return tqdm(total=total, desc=name, leave=False)
 
 
-_COMMON_DOC = """
+def _solve(name: str, fidelity: LeastSquares, denoiser: Any, keywords: dict[str, Any]) -> Reconstruction:
+    return _Run(algorithm_record(name), fidelity, denoiser, RunOptions.from_keywords(keywords)).run()
+
+
+def forward_backward(fidelity: LeastSquares, denoiser: Any, **options: Any) -> Reconstruction:
+    """PnP forward-backward: ``x+ = x + lam (D(x - step grad f(x)) - x)``.
+
+    The denoiser replaces the proximal step of the regulariser; the
+    monitored variable is ``x`` and ``T = D (I - step grad f)``.
+
     Parameters
     ----------
     fidelity : LeastSquares
         Data term ``f``.
     denoiser : Denoiser, callable or torch.nn.Module
         Anything :func:`pnpguard.as_denoiser` accepts.
-    step : float, optional
-        {step_doc} Default: the recommended value of :func:`pnpguard.admissible`
-        (``1/L`` for unguarded runs). When given on a guarded run it is checked
-        against the admissible interval.
-    relaxation : float, optional
-        ``lam`` in ``v+ = v + lam (T v - v)``; default the recommended value
-        (1 for unguarded runs); checked like ``step``.
-    report : CheckReport, optional
-        Reuse a check instead of running one (``check_denoiser`` on ``sample``).
-    guard : bool, optional
-        True (default): check, then refuse (raise :class:`pnpguard.Refused`)
-        unless a theorem covers the run. False: run without any guarantee;
-        the monitor still watches residuals, stalls and blow-ups, and the
-        result says that no guarantee applied.
-    x0 : array, optional
-        Initial image; default ``A^T y / ||A||^2`` (one gradient step of length
-        ``1/L`` from zero).
-    max_iter : int, optional
-        Iteration cap (default 300).
-    tol : float, optional
-        Stop when ``||T v - v|| / ||v|| <= tol`` (default 1e-4).
-    callback : callable, optional
-        Called with an :class:`IterationState` after every iteration; returning
-        True stops the run cleanly.
-    reference : array, optional
-        Ground truth: PSNR and SSIM of the estimate are recorded per iteration.
-    data_range : float, optional
-        Intensity range for the metrics; default the reference's max - min.
-    progress : bool, optional
-        Show a tqdm progress bar (default False).
-    policy : Policy, optional
-        What the monitor does on each flag (default: stop on blow-up, warn otherwise).
-    sample : array, optional
-        Images for the denoiser check; default ``x0``.
-    check_budget : int, optional
-        Denoiser calls for the check (default 200).
-    margin : float, optional
-        Safety margin on estimated constants (default 0.05).
-    seed : int, optional
-        Seed of the check's search.
+    **options
+        The keywords of :class:`RunOptions` (``step`` is the gradient step
+        ``eta``; ``relaxation``, ``guard``, ``x0``, ``max_iter``, ``tol``,
+        ``callback``, ``reference``...), validated once.
 
     Returns
     -------
@@ -284,35 +235,9 @@ _COMMON_DOC = """
     Refused
         On a guarded run that no theorem covers, or parameters outside the
         admissible set.
-"""
+    TypeError, ValueError
+        For an unknown keyword or an invalid option.
 
-
-def forward_backward(
-    fidelity: LeastSquares,
-    denoiser: Any,
-    *,
-    step: float | None = None,
-    relaxation: float | None = None,
-    report: CheckReport | None = None,
-    guard: bool = True,
-    x0: ArrayLike | None = None,
-    max_iter: int = 300,
-    tol: float = 1e-4,
-    callback: Callback | None = None,
-    reference: ArrayLike | None = None,
-    data_range: float | None = None,
-    progress: bool = False,
-    policy: Policy | None = None,
-    sample: Any = None,
-    check_budget: int = DEFAULT_BUDGET,
-    margin: float = DEFAULT_MARGIN,
-    seed: int = 0,
-) -> Reconstruction:
-    """PnP forward-backward: ``x+ = x + lam (D(x - step grad f(x)) - x)``.
-
-    The denoiser replaces the proximal step of the regulariser; the
-    monitored variable is ``x`` and ``T = D (I - step grad f)``.
-    {common}
     References
     ----------
     .. [1] P. L. Combettes and V. R. Wajs, "Signal recovery by proximal
@@ -322,37 +247,37 @@ def forward_backward(
        algorithm for regularized image reconstruction", IEEE Trans. Comput.
        Imaging 5(3) (2019) 395-408, doi:10.1109/TCI.2019.2893568.
     """
-    run = _Run("forward_backward", fidelity, denoiser, locals_of(locals()))
-    return run.run(ForwardBackward, lambda x0, step: x0)
+    return _solve("forward_backward", fidelity, denoiser, options)
 
 
-def douglas_rachford(
-    fidelity: LeastSquares,
-    denoiser: Any,
-    *,
-    step: float | None = None,
-    relaxation: float | None = None,
-    report: CheckReport | None = None,
-    guard: bool = True,
-    x0: ArrayLike | None = None,
-    max_iter: int = 300,
-    tol: float = 1e-4,
-    callback: Callback | None = None,
-    reference: ArrayLike | None = None,
-    data_range: float | None = None,
-    progress: bool = False,
-    policy: Policy | None = None,
-    sample: Any = None,
-    check_budget: int = DEFAULT_BUDGET,
-    margin: float = DEFAULT_MARGIN,
-    seed: int = 0,
-) -> Reconstruction:
+def douglas_rachford(fidelity: LeastSquares, denoiser: Any, **options: Any) -> Reconstruction:
     """PnP Douglas-Rachford: ``z+ = z + lam (prox_{gamma f}(2 D z - z) - D z)``.
 
     The monitored variable is ``z`` and ``T = (I + R_f R_D) / 2``; the
     estimate is ``prox_{gamma f}(2 D z - z)``. ``step`` is the prox parameter
     ``gamma``; ``x0`` initialises ``z``.
-    {common}
+
+    Parameters
+    ----------
+    fidelity : LeastSquares
+        Data term ``f``.
+    denoiser : Denoiser, callable or torch.nn.Module
+        Anything :func:`pnpguard.as_denoiser` accepts.
+    **options
+        The keywords of :class:`RunOptions`, validated once.
+
+    Returns
+    -------
+    Reconstruction
+
+    Raises
+    ------
+    Refused
+        On a guarded run that no theorem covers, or parameters outside the
+        admissible set.
+    TypeError, ValueError
+        For an unknown keyword or an invalid option.
+
     References
     ----------
     .. [1] P. L. Lions and B. Mercier, "Splitting algorithms for the sum of two
@@ -361,31 +286,10 @@ def douglas_rachford(
     .. [2] P. Giselsson and S. Boyd, IEEE Trans. Autom. Control 62(2) (2017)
        532-544, doi:10.1109/TAC.2016.2564160.
     """
-    run = _Run("douglas_rachford", fidelity, denoiser, locals_of(locals()))
-    return run.run(DouglasRachford, lambda x0, step: x0)
+    return _solve("douglas_rachford", fidelity, denoiser, options)
 
 
-def admm(
-    fidelity: LeastSquares,
-    denoiser: Any,
-    *,
-    step: float | None = None,
-    relaxation: float | None = None,
-    report: CheckReport | None = None,
-    guard: bool = True,
-    x0: ArrayLike | None = None,
-    max_iter: int = 300,
-    tol: float = 1e-4,
-    callback: Callback | None = None,
-    reference: ArrayLike | None = None,
-    data_range: float | None = None,
-    progress: bool = False,
-    policy: Policy | None = None,
-    sample: Any = None,
-    check_budget: int = DEFAULT_BUDGET,
-    margin: float = DEFAULT_MARGIN,
-    seed: int = 0,
-) -> Reconstruction:
+def admm(fidelity: LeastSquares, denoiser: Any, **options: Any) -> Reconstruction:
     """PnP ADMM: ``x+ = prox_{gamma f}(z - u)``, ``z+ = D(x+ + u)``, ``u+ = u + x+ - z+``.
 
     Run as Douglas-Rachford on the governing sequence ``w = x+ + u`` (the
@@ -393,8 +297,29 @@ def admm(
     guarantee and the monitor are about; with ``z0 = x0`` and ``u0 = 0`` it
     starts from ``w0 = prox_{gamma f}(x0)``. A relaxation ``lam`` gives the
     over-relaxed ADMM ``x^ = lam x+ + (1 - lam) z`` in place of ``x+`` in the
-    ``z`` and ``u`` updates. The estimate is ``x``.
-    {common}
+    ``z`` and ``u`` updates. The estimate is ``x``; ``step`` is ``gamma``.
+
+    Parameters
+    ----------
+    fidelity : LeastSquares
+        Data term ``f``.
+    denoiser : Denoiser, callable or torch.nn.Module
+        Anything :func:`pnpguard.as_denoiser` accepts.
+    **options
+        The keywords of :class:`RunOptions`, validated once.
+
+    Returns
+    -------
+    Reconstruction
+
+    Raises
+    ------
+    Refused
+        On a guarded run that no theorem covers, or parameters outside the
+        admissible set.
+    TypeError, ValueError
+        For an unknown keyword or an invalid option.
+
     References
     ----------
     .. [1] D. Gabay, "Applications of the method of multipliers to variational
@@ -405,18 +330,9 @@ def admm(
        restoration: fixed-point convergence and applications", IEEE Trans.
        Comput. Imaging 3(1) (2017) 84-98, doi:10.1109/TCI.2016.2629286.
     """
-    run = _Run("admm", fidelity, denoiser, locals_of(locals()))
-    return run.run(DouglasRachford, fidelity._prox)
+    return _solve("admm", fidelity, denoiser, options)
 
 
-def locals_of(arguments: dict[str, Any]) -> dict[str, Any]:
-    """The solver's keyword arguments without the positional ones."""
-    return {k: v for k, v in arguments.items() if k not in ("fidelity", "denoiser")}
-
-
-for _solver, _step_doc in (
-    (forward_backward, "Gradient step length ``eta``."),
-    (douglas_rachford, "Prox parameter ``gamma`` of ``prox_{gamma f}``."),
-    (admm, "Prox parameter ``gamma`` (penalty ``1/gamma``)."),
-):
-    _solver.__doc__ = _solver.__doc__.replace("{common}", _COMMON_DOC.replace("{step_doc}", _step_doc))
+# help() and inspect.signature show every option by name (they live in RunOptions).
+for _solver in (forward_backward, douglas_rachford, admm):
+    _solver.__signature__ = solver_signature()  # type: ignore[attr-defined]

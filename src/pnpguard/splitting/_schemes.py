@@ -26,11 +26,20 @@ References
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Protocol
 
 import torch
 
 from ..denoisers import Denoiser
 from ..fidelity import LeastSquares
+
+
+class Scheme(Protocol):
+    """An iteration map ``T`` built from a data term, a denoiser and a parameter."""
+
+    def __init__(self, fidelity: LeastSquares, denoiser: Denoiser, step: float) -> None: ...
+
+    def __call__(self, v: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]: ...
 
 
 @dataclass(frozen=True)

@@ -1,0 +1,377 @@
+"""Theorem routes as data: one record per published convergence result.
+
+A :class:`Route` says for which algorithms it holds, when it applies (which
+constants of the denoiser and the data term it needs), the window of
+parameters it admits with a recommended value, what it certifies of the
+relaxed iteration map (averagedness constant or contraction factor), its
+citation and the wording of its assumptions. :func:`pnpguard.admissible`
+tries the routes of an algorithm in table order; the first that applies is
+the guarantee, the others are its alternatives, and the reasons of those that
+do not apply make up a refusal. Adding a route is one record in
+:data:`ROUTES` plus its tests; an unknown route or algorithm raises.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Literal, Protocol
+
+from . import _theorems as th
+
+MapKind = Literal["averaged", "contraction", "nonexpansive"]
+
+
+class RouteConstants(Protocol):
+    """The constants a route reads (a :class:`Constants` or a :class:`Guarantee`)."""
+
+    theta: float
+    residual_lipschitz: float
+    lipschitz: float
+    strong_convexity: float
+
+
+@dataclass(frozen=True)
+class Window:
+    """Where a route applies: the open interval of parameters and the recommended values."""
+
+    step: float
+    interval: tuple[float, float]
+    relaxation: float
+
+
+@dataclass(frozen=True)
+class IterationMap:
+    """What a route certifies of the unrelaxed map at one parameter value.
+
+    ``constant`` is the averagedness constant (``"averaged"``) or the
+    Lipschitz factor of the map the relaxation acts on (``"contraction"``);
+    ``relaxations`` is the open interval of admissible relaxations.
+    """
+
+    kind: MapKind
+    constant: float
+    relaxations: tuple[float, float]
+
+
+#: A route's applicability test: a Window when it applies, a reason (str) when it
+#: does not and the user should hear why, None when it has nothing to say.
+Applies = Callable[["Constants", str], "Window | str | None"]
+
+
+@dataclass(frozen=True)
+class Route:
+    """One theorem that turns measured constants into admissible parameters.
+
+    Attributes
+    ----------
+    name : str
+        Short name shown in guarantees (``"averaged"``, ``"strongly convex"``...).
+    algorithms : tuple of str
+        API names of the algorithms it covers (keys of
+        :data:`pnpguard.splitting.ALGORITHMS`).
+    theorem : str
+        Citation, with the result's number.
+    applies : callable
+        ``applies(constants, algorithm_name) -> Window | str | None``.
+    iteration_map : callable
+        ``iteration_map(constants, step) -> IterationMap``.
+    relaxed : callable
+        ``relaxed(relaxation, constant) -> float``: the certified constant of
+        the relaxed map ``(1 - lam) I + lam T``.
+    assumption : str
+        Wording of what the route assumes beyond the constants.
+    """
+
+    name: str
+    algorithms: tuple[str, ...]
+    theorem: str
+    applies: Applies
+    iteration_map: Callable[[RouteConstants, float], IterationMap]
+    relaxed: Callable[[float, float], float]
+    assumption: str = "the iteration map has a fixed point (a solution exists)"
+
+
+# ------------------------------------------------------------------- constants
+@dataclass(frozen=True)
+class Constants:
+    """The numbers every route reads, and where each came from.
+
+    Attributes
+    ----------
+    theta, residual_lipschitz, denoiser_lipschitz : float
+        The denoiser's constants as used (estimates after the safety margin).
+    lipschitz, strong_convexity : float
+        ``L`` and ``mu`` of the data term.
+    basis : {"proved", "claimed", "estimated"}
+        Where the denoiser's constants come from: its verified structure, the
+        user's unrefuted claims, or a search (inflated by ``margin``).
+    data_proved : bool
+        True when ``L`` is certified.
+    margin : float
+        Inflation applied to estimates (0 otherwise).
+    expansive : bool
+        True when a pair (or the structure) shows that the denoiser expands.
+    refutation : str
+        The check's reason when the denoiser was refuted, else "".
+    estimates : tuple of float
+        The check's raw ``(theta, residual_lipschitz)`` before the margin.
+    """
+
+    theta: float
+    residual_lipschitz: float
+    denoiser_lipschitz: float
+    lipschitz: float
+    strong_convexity: float
+    basis: Literal["proved", "claimed", "estimated"]
+    data_proved: bool
+    margin: float
+    expansive: bool
+    refutation: str
+    estimates: tuple[float, float]
+
+
+# ------------------------------------------------------------------ helpers
+def not_averaged_reason(c: Constants) -> str:
+    """Why the averagedness routes do not apply."""
+    if c.refutation == "nonexpansiveness":
+        return (
+            f"denoiser is expansive: a pair has ||Dx - Dy|| = {c.denoiser_lipschitz:.4g} ||x - y|| "
+            "(witness attached to the check report)"
+        )
+    if c.refutation == "averagedness":
+        return f"denoiser is not averaged: a pair attains theta = {c.estimates[0]:.4g} (witness attached)"
+    if c.basis == "estimated":
+        return (
+            f"denoiser theta = {c.estimates[0]:.4g} (estimate; {100 * c.margin:.0f} % safety margin "
+            f"applied: {c.theta:.4g}) is not below 1"
+        )
+    return f"denoiser theta = {c.theta:.4g} ({c.basis}) is not below 1"
+
+
+def theta_limit(mu: float, lipschitz: float) -> float:
+    """Largest theta for which the strongly convex DR window is nonempty: ``1 / (2 (1 - sqrt(mu / L)))``."""
+    return 1.0 / (2.0 * (1.0 - math.sqrt(mu / lipschitz)))
+
+
+def _inside(preferred: float, window: tuple[float, float], fallback: float) -> float:
+    """``preferred`` when it lies in the open window, else ``fallback``."""
+    return preferred if window[0] < preferred < window[1] else fallback
+
+
+def _scaled(relaxation: float, constant: float) -> float:
+    """Averagedness of ``(1 - lam) I + lam T`` for an ``alpha``-averaged ``T``: ``lam alpha``."""
+    return relaxation * constant
+
+
+def _half_relaxed_contraction(relaxation: float, rho: float) -> float:
+    """Douglas-Rachford: ``T = (I + R)/2`` with ``R`` rho-Lipschitz, so the relaxed map is
+    ``(1 - lam/2) I + (lam/2) R``."""
+    return th.relaxed_contraction(relaxation / 2.0, rho)
+
+
+def _unit(relaxation: float, constant: float) -> float:
+    return 1.0
+
+
+# ------------------------------------------------------- forward-backward routes
+def _fb_averaged_applies(c: Constants, algorithm: str) -> Window | str:
+    if c.theta < 1.0:
+        return Window(1.0 / c.lipschitz, (0.0, 2.0 / c.lipschitz), 1.0)
+    return not_averaged_reason(c)
+
+
+def _fb_averaged_map(c: RouteConstants, step: float) -> IterationMap:
+    alpha = th.forward_backward_averagedness(c.theta, step, c.lipschitz)
+    return IterationMap("averaged", alpha, (0.0, 1.0 / alpha))
+
+
+def _fb_residual_applies(c: Constants, algorithm: str) -> Window | str | None:
+    lip, mu = c.lipschitz, c.strong_convexity
+    if mu <= 0:
+        return None
+    window = th.forward_backward_contraction_window(c.residual_lipschitz, mu, lip)
+    if window is None:
+        return (
+            f"residual route (Ryu et al. 2019): needs Lipschitz(D - I) = {c.residual_lipschitz:.4g} < "
+            f"2 mu / (L - mu) = {2 * mu / (lip - mu) if lip > mu else math.inf:.4g}"
+        )
+    step = min(max(2.0 / (lip + mu), window[0] * 1.001), window[1] * 0.999)
+    return Window(step, window, 1.0)
+
+
+def _fb_residual_map(c: RouteConstants, step: float) -> IterationMap:
+    rho = th.forward_backward_contraction(c.residual_lipschitz, step, c.strong_convexity, c.lipschitz)
+    return IterationMap("contraction", rho, (0.0, 2.0 / (1.0 + rho)))
+
+
+def _fb_nonexpansive_applies(c: Constants, algorithm: str) -> Window | None:
+    if c.theta >= 1.0 and not c.expansive and c.denoiser_lipschitz <= 1.0:
+        return Window(1.0 / c.lipschitz, (0.0, 2.0 / c.lipschitz), 0.5)
+    return None
+
+
+def _nonexpansive_map(c: RouteConstants, step: float) -> IterationMap:
+    return IterationMap("nonexpansive", 1.0, (0.0, 1.0))
+
+
+# ------------------------------------------------------ Douglas-Rachford routes
+def _dr_firm_applies(c: Constants, algorithm: str) -> Window | str | None:
+    if c.theta <= 0.5:
+        # gamma = 1/L matches the forward-backward step, so the fixed points weigh data
+        # and denoiser alike (common practice).
+        return Window(1.0 / c.lipschitz, (0.0, math.inf), 1.0)
+    if c.strong_convexity <= 0:
+        return (
+            f"{algorithm} needs a firmly nonexpansive denoiser (theta <= 1/2) or a strongly convex "
+            f"data term; theta = {c.theta:.4g} and the forward model has a null space or no "
+            "known lower singular value (mu = 0)"
+        )
+    return None
+
+
+def _dr_firm_map(c: RouteConstants, step: float) -> IterationMap:
+    return IterationMap("averaged", 0.5, (0.0, 2.0))
+
+
+def _dr_contraction_window(reflected: float, c: Constants) -> Window | None:
+    lip, mu = c.lipschitz, c.strong_convexity
+    window = th.douglas_rachford_window(reflected, mu, lip)
+    if window is None:
+        return None
+    # 1/L when inside the window (as for the firm route), else 1/sqrt(mu L), the fastest
+    # contraction, which every nonempty window contains.
+    return Window(_inside(1.0 / lip, window, th.optimal_prox_parameter(mu, lip)), window, 1.0)
+
+
+def _dr_strongly_convex_applies(c: Constants, algorithm: str) -> Window | str | None:
+    if c.theta <= 0.5 or c.strong_convexity <= 0:
+        return None  # the firm route covers (or explains) these cases
+    if c.theta >= 1.0:
+        return not_averaged_reason(c)
+    window = _dr_contraction_window(th.reflected_denoiser_lipschitz(c.theta), c)
+    if window is None:
+        return (
+            f"strongly convex route: no gamma makes (4 theta - 1) delta(gamma) < 1 with "
+            f"theta = {c.theta:.4g}, mu / L = {c.strong_convexity / c.lipschitz:.4g}; it needs theta < "
+            f"{theta_limit(c.strong_convexity, c.lipschitz):.4g}"
+        )
+    return window
+
+
+def _dr_strongly_convex_map(c: RouteConstants, step: float) -> IterationMap:
+    rho = th.reflected_denoiser_lipschitz(c.theta) * th.reflected_prox_lipschitz(
+        step, c.strong_convexity, c.lipschitz
+    )
+    return IterationMap("contraction", rho, (0.0, 4.0 / (1.0 + rho)))
+
+
+def _dr_residual_applies(c: Constants, algorithm: str) -> Window | None:
+    if c.theta <= 0.5 or c.strong_convexity <= 0:
+        return None
+    return _dr_contraction_window(1.0 + 2.0 * c.residual_lipschitz, c)
+
+
+def _dr_residual_map(c: RouteConstants, step: float) -> IterationMap:
+    rho = (1.0 + 2.0 * c.residual_lipschitz) * th.reflected_prox_lipschitz(step, c.strong_convexity, c.lipschitz)
+    return IterationMap("contraction", rho, (0.0, 4.0 / (1.0 + rho)))
+
+
+_DOUGLAS_RACHFORD = ("douglas_rachford", "admm")
+
+#: The routes, in order of preference within each algorithm.
+ROUTES: tuple[Route, ...] = (
+    Route(
+        name="averaged",
+        algorithms=("forward_backward",),
+        theorem=(
+            "Krasnosel'skii-Mann iteration of T = D (I - step grad f), which is averaged by "
+            "Combettes & Yamada, J. Math. Anal. Appl. 425 (2015), Prop. 2.4"
+        ),
+        applies=_fb_averaged_applies,
+        iteration_map=_fb_averaged_map,
+        relaxed=_scaled,
+    ),
+    Route(
+        name="residual contraction",
+        algorithms=("forward_backward",),
+        theorem=(
+            "Ryu, Liu, Wang, Chen, Wang & Yin, ICML 2019, Thm. 1: T = D (I - step grad f) is a "
+            "contraction when D - I is eps-Lipschitz and f strongly convex"
+        ),
+        applies=_fb_residual_applies,
+        iteration_map=_fb_residual_map,
+        relaxed=th.relaxed_contraction,
+    ),
+    Route(
+        name="nonexpansive",
+        algorithms=("forward_backward",),
+        theorem=(
+            "Krasnosel'skii-Mann iteration of the nonexpansive map T = D (I - step grad f) "
+            "(Bauschke & Combettes 2017, Thm. 5.15)"
+        ),
+        applies=_fb_nonexpansive_applies,
+        iteration_map=_nonexpansive_map,
+        relaxed=_unit,
+    ),
+    Route(
+        name="firmly nonexpansive",
+        algorithms=_DOUGLAS_RACHFORD,
+        theorem=(
+            "Douglas-Rachford with two firmly nonexpansive resolvents: T = (I + R_f R_D) / 2 is "
+            "firmly nonexpansive (Bauschke & Combettes 2017, Thm. 26.11)"
+        ),
+        applies=_dr_firm_applies,
+        iteration_map=_dr_firm_map,
+        relaxed=_scaled,
+    ),
+    Route(
+        name="strongly convex",
+        algorithms=_DOUGLAS_RACHFORD,
+        theorem=(
+            "Douglas-Rachford contraction: R_f is delta(gamma)-Lipschitz for strongly convex f "
+            "(Giselsson & Boyd, IEEE TAC 62(2) 2017, Thm. 1) and R_D = 2 D - I is (4 theta - 1)-"
+            "Lipschitz for a theta-averaged D; product < 1 (derived)"
+        ),
+        applies=_dr_strongly_convex_applies,
+        iteration_map=_dr_strongly_convex_map,
+        relaxed=_half_relaxed_contraction,
+    ),
+    Route(
+        name="residual contraction",
+        algorithms=_DOUGLAS_RACHFORD,
+        theorem=(
+            "Douglas-Rachford contraction: R_f is delta(gamma)-Lipschitz for strongly convex f "
+            "(Giselsson & Boyd, IEEE TAC 62(2) 2017, Thm. 1) and R_D = 2 D - I is (1 + 2 eps)-"
+            "Lipschitz when D - I is eps-Lipschitz; product < 1 (derived)"
+        ),
+        applies=_dr_residual_applies,
+        iteration_map=_dr_residual_map,
+        relaxed=_half_relaxed_contraction,
+    ),
+)
+
+
+def routes_for(algorithm: str, table: tuple[Route, ...] = ROUTES) -> tuple[Route, ...]:
+    """The routes of one algorithm, in order of preference.
+
+    Raises
+    ------
+    ValueError
+        When no route covers ``algorithm``.
+    """
+    found = tuple(route for route in table if algorithm in route.algorithms)
+    if not found:
+        raise ValueError(f"no theorem route covers the algorithm {algorithm!r}")
+    return found
+
+
+def find_route(name: str, algorithm: str, table: tuple[Route, ...] = ROUTES) -> Route:
+    """The route called ``name`` for ``algorithm``; raises ValueError listing the valid names."""
+    candidates = routes_for(algorithm, table)
+    for route in candidates:
+        if route.name == name:
+            return route
+    valid = sorted(route.name for route in candidates)
+    raise ValueError(f"`route` must be one of {valid} for {algorithm}, got {name!r}")

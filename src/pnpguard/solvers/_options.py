@@ -1,0 +1,156 @@
+"""The options every guarded solver shares, in one frozen record validated once."""
+
+from __future__ import annotations
+
+import dataclasses
+import difflib
+import inspect
+import math
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+from .._arrays import ArrayLike
+from ..check import DEFAULT_BUDGET, CheckReport
+from ..guarantee import DEFAULT_MARGIN
+from ._monitor import Policy
+from ._result import IterationState
+
+Callback = Callable[[IterationState], Any]
+
+
+def _positive_or_none(value: Any, name: str) -> float | None:
+    if value is None:
+        return None
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise TypeError(f"`{name}` must be a number, got {type(value).__name__}")
+    if not (math.isfinite(value) and value > 0):
+        raise ValueError(f"`{name}` must be a positive finite number, got {value!r}")
+    return float(value)
+
+
+def _integer(value: Any, name: str, low: int) -> int:
+    if isinstance(value, bool) or not isinstance(value, int):
+        raise TypeError(f"`{name}` must be an integer, got {type(value).__name__}")
+    if value < low:
+        raise ValueError(f"`{name}` must be at least {low}, got {value!r}")
+    return value
+
+
+@dataclass(frozen=True)
+class RunOptions:
+    """Keyword options shared by :func:`forward_backward`, :func:`douglas_rachford` and :func:`admm`.
+
+    Parameters
+    ----------
+    step : float, optional
+        The algorithm's parameter: the gradient step ``eta`` (forward-backward)
+        or the prox parameter ``gamma`` of ``prox_{gamma f}`` (Douglas-Rachford,
+        ADMM, where the penalty is ``1 / gamma``). Default: the recommended
+        value of :func:`pnpguard.admissible` (``1/L`` for unguarded runs).
+        When given on a guarded run it is checked against the admissible
+        interval.
+    relaxation : float, optional
+        ``lam`` in ``v+ = v + lam (T v - v)``; default the recommended value
+        (1 for unguarded runs); checked like ``step``.
+    report : CheckReport, optional
+        Reuse a check instead of running one (``check_denoiser`` on ``sample``).
+    guard : bool, optional
+        True (default): check, then refuse (raise :class:`pnpguard.Refused`)
+        unless a theorem covers the run. False: run without any guarantee;
+        the monitor still watches residuals, stalls and blow-ups, and the
+        result says that no guarantee applied.
+    x0 : array, optional
+        Initial image; default ``A^T y / ||A||^2`` (one gradient step of length
+        ``1/L`` from zero).
+    max_iter : int, optional
+        Iteration cap (default 300).
+    tol : float, optional
+        Stop when the relative fixed-point residual of the governing variable
+        ``||T v_k - v_k|| / ||v_k|| <= tol`` (default 1e-4).
+    callback : callable, optional
+        Called with an :class:`IterationState` after every iteration,
+        including the one that meets ``tol``; returning True stops the run
+        cleanly.
+    reference : array, optional
+        Ground truth: PSNR and SSIM of the estimate are recorded per iteration.
+    data_range : float, optional
+        Intensity range for the metrics; default the reference's max - min.
+    progress : bool, optional
+        Show a tqdm progress bar (default False).
+    policy : Policy, optional
+        What the monitor does on each flag (default: stop on blow-up, warn otherwise).
+    sample : array, optional
+        Images for the denoiser check; default ``x0``.
+    check_budget : int, optional
+        Denoiser calls for the check (default 200).
+    margin : float, optional
+        Safety margin on estimated constants (default 0.05).
+    seed : int, optional
+        Seed of the check's search.
+    """
+
+    step: float | None = None
+    relaxation: float | None = None
+    report: CheckReport | None = None
+    guard: bool = True
+    x0: ArrayLike | None = None
+    max_iter: int = 300
+    tol: float = 1e-4
+    callback: Callback | None = None
+    reference: ArrayLike | None = None
+    data_range: float | None = None
+    progress: bool = False
+    policy: Policy | None = None
+    sample: Any = None
+    check_budget: int = DEFAULT_BUDGET
+    margin: float = DEFAULT_MARGIN
+    seed: int = 0
+
+    def __post_init__(self) -> None:
+        set_ = object.__setattr__
+        set_(self, "step", _positive_or_none(self.step, "step"))
+        set_(self, "relaxation", _positive_or_none(self.relaxation, "relaxation"))
+        set_(self, "data_range", _positive_or_none(self.data_range, "data_range"))
+        set_(self, "max_iter", _integer(self.max_iter, "max_iter", 1))
+        set_(self, "check_budget", _integer(self.check_budget, "check_budget", 1))
+        set_(self, "seed", _integer(self.seed, "seed", 0))
+        if isinstance(self.tol, bool) or not isinstance(self.tol, (int, float)):
+            raise TypeError(f"`tol` must be a number, got {type(self.tol).__name__}")
+        if not (math.isfinite(self.tol) and self.tol >= 0):
+            raise ValueError(f"`tol` must be a non-negative finite number, got {self.tol!r}")
+        if self.report is not None and not isinstance(self.report, CheckReport):
+            raise TypeError(f"`report` must be a CheckReport, got {type(self.report).__name__}")
+        if self.callback is not None and not callable(self.callback):
+            raise TypeError(f"`callback` must be callable, got {type(self.callback).__name__}")
+        if self.policy is None:
+            set_(self, "policy", Policy())
+        if not isinstance(self.policy, Policy):
+            raise TypeError(f"`policy` must be a pnpguard Policy, got {type(self.policy).__name__}")
+        for name in ("guard", "progress"):
+            if not isinstance(getattr(self, name), bool):
+                raise TypeError(f"`{name}` must be True or False, got {getattr(self, name)!r}")
+
+    @classmethod
+    def from_keywords(cls, keywords: dict[str, Any]) -> RunOptions:
+        """Build from a solver's keyword arguments; an unknown keyword raises TypeError with a hint."""
+        known = [f.name for f in dataclasses.fields(cls)]
+        unknown = sorted(set(keywords) - set(known))
+        if unknown:
+            close = difflib.get_close_matches(unknown[0], known, n=1)
+            hint = f"; did you mean {close[0]!r}?" if close else ""
+            raise TypeError(f"unexpected keyword argument {unknown[0]!r}; valid: {sorted(known)}{hint}")
+        return cls(**keywords)
+
+
+def solver_signature() -> inspect.Signature:
+    """``(fidelity, denoiser, *, <every RunOptions field with its default>)``, for help text."""
+    parameters = [
+        inspect.Parameter("fidelity", inspect.Parameter.POSITIONAL_OR_KEYWORD),
+        inspect.Parameter("denoiser", inspect.Parameter.POSITIONAL_OR_KEYWORD),
+    ]
+    parameters += [
+        inspect.Parameter(f.name, inspect.Parameter.KEYWORD_ONLY, default=f.default, annotation=f.type)
+        for f in dataclasses.fields(RunOptions)
+    ]
+    return inspect.Signature(parameters, return_annotation="Reconstruction")

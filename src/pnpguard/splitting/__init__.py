@@ -1,0 +1,12 @@
+"""Splitting algorithms as data: one record per algorithm and its iteration map.
+
+- :data:`ALGORITHMS`: the table (API name -> :class:`Algorithm`).
+- :func:`algorithm`: look a record up by API name or short name.
+- :class:`ForwardBackward`, :class:`DouglasRachford`: iteration maps on the
+  governing variable the convergence theory is about.
+"""
+
+from ._schemes import DouglasRachford, ForwardBackward, Scheme
+from ._table import ALGORITHMS, Algorithm, algorithm
+
+__all__ = ["ALGORITHMS", "Algorithm", "DouglasRachford", "ForwardBackward", "Scheme", "algorithm"]

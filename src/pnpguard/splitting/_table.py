@@ -1,0 +1,120 @@
+"""The table of splitting algorithms: one record per algorithm, read by every consumer.
+
+:func:`pnpguard.admissible`, the solvers, the monitor, the refusal
+suggestions, the benchmark suite and the command line all take their
+algorithm names, short names and iteration maps from :data:`ALGORITHMS`.
+Adding an algorithm is one record here (with its iteration map in
+:mod:`._schemes`) plus its theorem routes in :mod:`pnpguard.guarantee`.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import torch
+
+from ..fidelity import LeastSquares
+from ._schemes import DouglasRachford, ForwardBackward, Scheme
+
+#: How the governing variable starts from the initial image ``x0``.
+StartRule = Callable[[LeastSquares, torch.Tensor, float], torch.Tensor]
+
+
+def _from_image(fidelity: LeastSquares, x0: torch.Tensor, step: float) -> torch.Tensor:
+    return x0
+
+
+def _from_data_prox(fidelity: LeastSquares, x0: torch.Tensor, step: float) -> torch.Tensor:
+    return fidelity._prox(x0, step)
+
+
+@dataclass(frozen=True)
+class Algorithm:
+    """Everything the library needs to know about one splitting algorithm.
+
+    Attributes
+    ----------
+    name : str
+        Name in the Python API and in guarantees (``"forward_backward"``).
+    short : str
+        Short name in benchmark method names and on the command line (``"fb"``).
+    title : str
+        Name in printed text (``"forward-backward"``).
+    scheme : type
+        The iteration map ``T`` on the governing variable, built as
+        ``scheme(fidelity, denoiser, step)`` and called as ``T(v) -> (T v, x)``.
+    step_name : str
+        What the algorithm's parameter is called in printouts (``"step"``,
+        ``"gamma"``).
+    step_meaning : str
+        What that parameter is.
+    variable : str
+        The governing variable the theory, and so the monitor, is about.
+    start : callable
+        ``start(fidelity, x0, step)``: the governing variable's first value.
+    """
+
+    name: str
+    short: str
+    title: str
+    scheme: type[Scheme]
+    step_name: str
+    step_meaning: str
+    variable: str
+    start: StartRule
+
+
+#: The algorithms, keyed by their API name, in the order printouts list them.
+ALGORITHMS: dict[str, Algorithm] = {
+    record.name: record
+    for record in (
+        Algorithm(
+            name="forward_backward",
+            short="fb",
+            title="forward-backward",
+            scheme=ForwardBackward,
+            step_name="step",
+            step_meaning="gradient step length eta",
+            variable="x",
+            start=_from_image,
+        ),
+        Algorithm(
+            name="douglas_rachford",
+            short="dr",
+            title="Douglas-Rachford",
+            scheme=DouglasRachford,
+            step_name="gamma",
+            step_meaning="prox parameter gamma of prox_{gamma f}",
+            variable="z",
+            start=_from_image,
+        ),
+        Algorithm(
+            name="admm",
+            short="admm",
+            title="ADMM",
+            scheme=DouglasRachford,
+            step_name="gamma",
+            step_meaning="prox parameter gamma (penalty 1 / gamma)",
+            variable="w = x + u",
+            start=_from_data_prox,
+        ),
+    )
+}
+
+
+def algorithm(key: str | Algorithm) -> Algorithm:
+    """The record of an algorithm given by API name, short name or record.
+
+    Raises
+    ------
+    ValueError
+        For an unknown name, listing the valid ones.
+    """
+    if isinstance(key, Algorithm):
+        return key
+    for record in ALGORITHMS.values():
+        if key in (record.name, record.short):
+            return record
+    valid = sorted({*ALGORITHMS, *(record.short for record in ALGORITHMS.values())})
+    raise ValueError(f"`algorithm` must be one of {valid}, got {key!r}")
