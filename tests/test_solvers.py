@@ -365,3 +365,29 @@ def test_import_works_without_docstrings():
     env = dict(os.environ, PYTHONPATH=os.pathsep.join(sys.path))
     done = subprocess.run([sys.executable, "-OO", "-c", "import pnpguard"], env=env, capture_output=True, text=True)
     assert done.returncode == 0, done.stderr
+
+
+def test_a_denoiser_that_does_nothing_is_flagged_as_a_trivial_fixed_point():
+    # Inpainting from the zero-filled start A^T y: with a denoiser that does nothing the
+    # start is already a fixed point of forward-backward (grad f vanishes there).
+    shape = (16, 16)
+    op = pg.PixelMask(pg.random_pixel_mask(shape, 0.5, seed=2))
+    fidelity = pg.LeastSquares(op, op(RNG.random(shape)))
+    result = pg.forward_backward(fidelity, pg.NonLocalMeans(sigma=1e-4), guard=False, max_iter=20)
+    assert result.converged
+    assert [flag.kind for flag in result.flags] == ["trivial_fixed_point"]
+    assert "prior did nothing" in str(result)
+    working = pg.forward_backward(fidelity, _soft(0.05), guard=False, max_iter=20)
+    assert not any(flag.kind == "trivial_fixed_point" for flag in working.flags)
+
+
+def test_printout_summarises_many_flags():
+    op = pg.PixelMask(pg.random_pixel_mask(SHAPE, 0.5, seed=2))
+    fidelity = pg.LeastSquares(op, RNG.random(SHAPE), sigma=0.1)
+    expanding = pg.as_denoiser(lambda z: 1.05 * z, name="expander", backend="torch")
+    result = pg.forward_backward(fidelity, expanding, guard=False, x0=RNG.random(SHAPE), max_iter=200, tol=0)
+    increases = [flag for flag in result.flags if flag.kind == "residual_increase"]
+    assert len(increases) > 20
+    text = str(result)
+    assert f"residual_increase: {len(increases)}" in text
+    assert len(text.splitlines()) < 20

@@ -34,6 +34,29 @@ import torch
 #: the rounding error of one denoiser evaluation. A heuristic: errors of long
 #: floating-point sums grow like sqrt(n) eps in practice (common practice).
 ROUNDING_FACTOR = 64.0
+#: A pair is informative when ``||r||^2 > INFORMATIVE_FACTOR * allowance * ||a||``:
+#: the rounding error ``e`` of ``r`` moves ``<a, r>`` by up to ``||e|| ||a||`` while
+#: ``<a, r> = ||r||^2 / (2 theta)``, so the statistic's relative error stays below
+#: about ``2 theta / INFORMATIVE_FACTOR``.
+INFORMATIVE_FACTOR = 1000.0
+
+
+def averagedness_statistic(
+    r_norm: torch.Tensor, inner: torch.Tensor, a_norm: torch.Tensor, allowance: torch.Tensor
+) -> tuple[torch.Tensor, torch.Tensor]:
+    """``theta = ||r||^2 / (2 <a, r>)`` (``inf`` when ``<a, r> <= 0``) and whether it is informative.
+
+    The one definition of the pair statistic, used by the check and by the
+    run monitor. All arguments are float64 tensors of one shape: ``||r||``,
+    ``<a, r>``, ``||a||`` and the absolute rounding allowance of ``r``.
+    """
+    informative = r_norm**2 > INFORMATIVE_FACTOR * allowance * a_norm
+    theta = torch.where(
+        inner > 0,
+        r_norm**2 / (2.0 * inner.clamp_min(torch.finfo(torch.float64).tiny)),
+        torch.full_like(inner, torch.inf),
+    )
+    return theta, informative
 
 
 @dataclass(frozen=True)
@@ -52,10 +75,8 @@ class PairStatistics:
     expansive : torch.Tensor
         Boolean: ``||Dx - Dy|| > ||x - y||`` by more than the rounding allowance.
     informative : torch.Tensor
-        Boolean: ``||r||^2 > 1000 * allowance * ||a||``. The rounding error
-        ``e`` of ``r`` moves ``<a, r>`` by up to ``||e|| ||a||`` while
-        ``<a, r> = ||r||^2 / (2 theta)``, so this keeps the relative error of
-        the averagedness statistic below about ``2 theta / 1000``.
+        Boolean: ``||r||^2 > INFORMATIVE_FACTOR * allowance * ||a||`` (see
+        :func:`averagedness_statistic`).
     """
 
     theta: torch.Tensor
@@ -91,12 +112,8 @@ def pair_statistics(
     out_norm = torch.linalg.vector_norm(out, dim=1)
     r_norm = torch.linalg.vector_norm(r, dim=1)
     inner = torch.sum(a * r, dim=1)
-    informative = r_norm**2 > 1000.0 * allowance * a_norm
+    theta, informative = averagedness_statistic(r_norm, inner, a_norm, allowance)
     expansive = out_norm > a_norm + allowance
-    theta = torch.where(
-        inner > 0, r_norm**2 / (2.0 * inner.clamp_min(torch.finfo(torch.float64).tiny)),
-        torch.full_like(inner, torch.inf),
-    )
     theta = torch.where(informative | expansive, theta, torch.zeros_like(theta))
     # A pair that is not expanded beyond rounding cannot show theta > 1.
     theta = torch.where(expansive, theta, theta.clamp_max(1.0))

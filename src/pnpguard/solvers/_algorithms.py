@@ -156,6 +156,10 @@ class _Run:
             if relative[-1] <= o.tol:
                 converged, message = True, f"relative residual {relative[-1]:.2e} <= tol {o.tol:g}"
                 break
+        denoiser_input = scheme.denoiser_input(v)
+        trivial = monitor.trivial(len(relative), denoiser_input, self.denoiser.apply(denoiser_input))
+        if trivial is not None:
+            flags.append(trivial)
         seconds = time.perf_counter() - begin
         if bar is not None:
             bar.close()

@@ -26,11 +26,14 @@ from typing import Literal
 
 import torch
 
-from ..check._pairs import ROUNDING_FACTOR
+from ..check._pairs import ROUNDING_FACTOR, averagedness_statistic
 
-FlagKind = Literal["assumption_broken", "residual_increase", "stall", "blow_up"]
 Action = Literal["warn", "stop", "back_off"]
+#: Flags with a policy (raised during the run).
 FLAG_KINDS = ("assumption_broken", "blow_up", "residual_increase", "stall")
+#: Relative change below which the denoiser counts as having done nothing at the
+#: final point (our choice: far above float64 rounding, far below any useful denoising).
+TRIVIAL_CHANGE = 1e-6
 ACTIONS = ("back_off", "stop", "warn")
 
 
@@ -91,7 +94,10 @@ class Flag:
     Attributes
     ----------
     kind : str
-        ``"assumption_broken"``, ``"residual_increase"``, ``"stall"`` or ``"blow_up"``.
+        ``"assumption_broken"``, ``"residual_increase"``, ``"stall"``,
+        ``"blow_up"`` or ``"trivial_fixed_point"`` (the denoiser left the
+        final point unchanged: the run settled where the data term alone
+        puts it, the prior did nothing).
     iteration : int
         Iteration at which it was seen (0-based index of the iterate ``v_k``).
     message : str
@@ -101,7 +107,8 @@ class Flag:
     witness : tuple of torch.Tensor or None
         For ``assumption_broken`` and ``residual_increase``: the pair of
         consecutive iterates ``(v_(k-1), v_k)`` of the governing variable that
-        violates the certified inequality (or is expanded).
+        violates the certified inequality (or is expanded). For
+        ``trivial_fixed_point``: the denoiser's input and output at the end.
     value : float
         The offending statistic.
     """
@@ -207,8 +214,11 @@ class Monitor:
             r = step - previous
             inner = -float(torch.vdot(previous.reshape(-1), r.reshape(-1)))
             r_norm = norm(r)
-            if r_norm**2 > 1000.0 * allowance * before and r_norm > 0:
-                statistic = math.inf if inner <= 0 else r_norm**2 / (2.0 * inner)
+            theta, informative = averagedness_statistic(
+                *(torch.tensor(value, dtype=torch.float64) for value in (r_norm, inner, before, allowance))
+            )
+            if bool(informative) and r_norm > 0:
+                statistic = float(theta)
                 if statistic > self.constant + 1e-6:
                     flags.append(
                         self._flag(
@@ -250,6 +260,23 @@ class Monitor:
                 )
             ]
         return []
+
+    def trivial(self, iteration: int, denoiser_input: torch.Tensor, denoiser_output: torch.Tensor) -> Flag | None:
+        """Flag a run whose denoiser changes its final input by less than :data:`TRIVIAL_CHANGE` (relative).
+
+        Such a run has settled on a fixed point of the data step alone (for
+        inpainting, the zero-filled start itself): converged, but the prior
+        played no part. Raised once, after the loop, with action ``"warn"``.
+        """
+        change = norm(denoiser_output - denoiser_input)
+        size = norm(denoiser_input)
+        if change > TRIVIAL_CHANGE * size:
+            return None
+        message = (
+            f"the denoiser changed its final input by {change:.3g} (relative {change / max(size, 1e-300):.3g}): "
+            "the run settled where the data step alone puts it; the prior did nothing (strength too low?)"
+        )
+        return Flag("trivial_fixed_point", iteration, message, "warn", (denoiser_input, denoiser_output), change)
 
     def _flag(self, kind, iteration, message, value, witness=None) -> Flag:
         return Flag(kind, iteration, message, getattr(self.policy, kind), witness, value)

@@ -64,7 +64,8 @@ class Reconstruction:
     metrics : dict of str to numpy.ndarray
         ``"psnr"`` and ``"ssim"`` per iteration when a reference was given.
     flags : tuple of Flag
-        Problems the monitor saw, with iteration numbers and witnesses.
+        Problems the monitor saw, with iteration numbers and witnesses (the
+        printout summarises them: a count per kind, the first and the last).
     step, relaxation : float
         Parameters used at the end (a back-off lowers the relaxation).
     report : CheckReport or None
@@ -119,9 +120,21 @@ class Reconstruction:
             )
         for name, values in self.metrics.items():
             lines.append(f"  {name:<19}{values[-1]:.4f} (final)")
-        if not self.flags:
-            lines.append("  monitor            no flags")
-        for flag in self.flags:
-            lines.append(f"  flag               [{flag.kind}, iteration {flag.iteration}, {flag.action}] {flag.message}")
+        lines += _flag_lines(self.flags)
         lines += [f"  note               {note}" for note in self.notes]
         return "\n".join(lines)
+
+
+def _flag_lines(flags: tuple[Flag, ...]) -> list[str]:
+    """A count per kind with its first and last flag (the full list stays in ``.flags``)."""
+    if not flags:
+        return ["  monitor            no flags"]
+    lines = []
+    for kind in dict.fromkeys(flag.kind for flag in flags):
+        same = [flag for flag in flags if flag.kind == kind]
+        lines.append(f"  flags              {kind}: {len(same)}")
+        shown = same if len(same) <= 2 else [same[0], same[-1]]
+        for label, flag in zip(("first" if len(same) > 1 else "only", "last"), shown):
+            witness = "" if flag.witness is None else " (witness pair in .flags)"
+            lines.append(f"    {label:<5}            iteration {flag.iteration}, {flag.action}: {flag.message}{witness}")
+    return lines

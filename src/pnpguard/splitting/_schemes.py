@@ -41,6 +41,8 @@ class Scheme(Protocol):
 
     def __call__(self, v: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]: ...
 
+    def denoiser_input(self, v: torch.Tensor) -> torch.Tensor: ...
+
 
 @dataclass(frozen=True)
 class ForwardBackward:
@@ -51,8 +53,12 @@ class ForwardBackward:
     step: float
 
     def __call__(self, v: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
-        image = self.denoiser.apply(v - self.step * self.fidelity._grad(v))
+        image = self.denoiser.apply(self.denoiser_input(v))
         return image, image
+
+    def denoiser_input(self, v: torch.Tensor) -> torch.Tensor:
+        """What the denoiser is applied to at ``v``: ``v - step grad f(v)``."""
+        return v - self.step * self.fidelity._grad(v)
 
 
 @dataclass(frozen=True)
@@ -67,3 +73,7 @@ class DouglasRachford:
         denoised = self.denoiser.apply(v)
         data_step = self.fidelity._prox(2.0 * denoised - v, self.step)
         return v + data_step - denoised, data_step
+
+    def denoiser_input(self, v: torch.Tensor) -> torch.Tensor:
+        """What the denoiser is applied to at ``v``: ``v`` itself."""
+        return v
