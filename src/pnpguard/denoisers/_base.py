@@ -21,7 +21,7 @@ from __future__ import annotations
 
 import abc
 import math
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from typing import Any
 
 import torch
@@ -173,6 +173,16 @@ class Denoiser(abc.ABC):
                 f"{tuple(tensor.shape)}"
             )
         return from_tensor(out, kind)
+
+    def tolerance_driver(self) -> Callable[[torch.Tensor, float], torch.Tensor] | None:
+        """For an inexactly computed map: ``apply(t, tol)`` computing it to RMS error ``tol`` per pixel.
+
+        None (the default) when the denoiser is exact or its error cannot be
+        tightened. The solvers use a driver to make the errors of a run
+        summable (see :func:`pnpguard.forward_backward`). Each call returns a
+        new driver, whose state (warm starts) is private to one run.
+        """
+        return None
 
     def apply(self, t: torch.Tensor) -> torch.Tensor:
         """The fast path used inside iterations, without autograd.

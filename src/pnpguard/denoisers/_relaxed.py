@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import math
 from typing import Any
 
@@ -27,6 +29,18 @@ class _Relaxed(Denoiser):
 
     def _denoise(self, t: torch.Tensor) -> torch.Tensor:
         return (1.0 - self.s) * t + self.s * self.denoiser._run(t)
+
+    def tolerance_driver(self) -> Callable[[torch.Tensor, float], torch.Tensor] | None:
+        """The inner driver at tolerance ``tol / s`` (the relaxed map's error is ``s`` times the inner one's)."""
+        inner = self.denoiser.tolerance_driver()
+        if inner is None:
+            return None
+        s = self.s
+
+        def apply(t: torch.Tensor, tol: float) -> torch.Tensor:
+            return (1.0 - s) * t + s * inner(t, tol / s)
+
+        return apply
 
 
 def relaxed(denoiser: Any, s: float) -> Denoiser:

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 import time
+from dataclasses import replace
 from typing import Any
 
 import numpy as np
@@ -11,7 +12,7 @@ import torch
 
 from .._arrays import from_tensor, to_tensor
 from ..check import CheckReport, check_denoiser
-from ..denoisers import as_denoiser
+from ..denoisers import Denoiser, as_denoiser
 from ..fidelity import LeastSquares
 from ..guarantee import Guarantee, admissible
 from ..metrics import psnr, ssim
@@ -91,17 +92,23 @@ class _Run:
     def run(self) -> Reconstruction:
         """Guard, then iterate the algorithm's map from its start."""
         report, guarantee, check_seconds = self.guard()
-        scheme = self.algorithm.scheme(self.fidelity, self.denoiser, self.step)
+        tolerance = 0.0 if report is None else report.tolerance
+        driven = _DrivenTolerance.of(self.denoiser, tolerance)
+        if guarantee is not None and tolerance > 0:
+            guarantee = _inexact_guarantee(guarantee, tolerance, driven is not None)
+        scheme = self.algorithm.scheme(self.fidelity, self.denoiser if driven is None else driven, self.step)
         start = self.algorithm.start(self.fidelity, self.x0, self.step)
         o = self.options
         certified = (None, math.nan) if guarantee is None else guarantee.map_constant(self.step, self.relaxation)
         scale = max(norm(start), norm(self.fidelity.y), 1e-12)
         # An inexact denoiser (RMS error <= tol per pixel per call) moves T v by at most
-        # tol sqrt(N) per evaluation; T uses up to three evaluations' worth (Douglas-Rachford),
-        # and two consecutive steps enter each comparison.
-        tolerance = 0.0 if report is None else report.tolerance
-        inexactness = 6.0 * self.relaxation * tolerance * math.sqrt(start.numel())
-        monitor = Monitor(self.policy, certified[0], certified[1], scale, inexactness)
+        # error_gain tol sqrt(N) (the Algorithm record says how often the error enters T),
+        # and two consecutive steps enter each comparison of the monitor.
+        per_tolerance = self.algorithm.error_gain * math.sqrt(start.numel())
+        monitor = Monitor(self.policy, certified[0], certified[1], scale, 2.0 * self.relaxation * tolerance * per_tolerance)
+        # Without a driver the error stays at `tolerance`: residuals below what it allows
+        # say nothing about the exact map's fixed point.
+        error_floor = 0.0 if driven is not None else self.relaxation * tolerance * per_tolerance
         relaxation = self.relaxation
         flags: list[Flag] = []
         residuals: list[float] = []
@@ -113,6 +120,10 @@ class _Run:
         begin = time.perf_counter()
         size = norm(start)
         for iteration in range(o.max_iter):
+            if driven is not None:
+                previous_tolerance = driven.tolerance
+                driven.tolerance = driven.schedule(iteration, v.dtype)
+                monitor.inexactness = 2.0 * relaxation * previous_tolerance * per_tolerance
             image, candidate_estimate = scheme(v)
             step = relaxation * (image - v)
             candidate = v + step
@@ -156,6 +167,13 @@ class _Run:
             if relative[-1] <= o.tol:
                 converged, message = True, f"relative residual {relative[-1]:.2e} <= tol {o.tol:g}"
                 break
+            if residual <= error_floor:
+                message = (
+                    f"residual {residual:.3g} is within what the denoiser's stated error allows "
+                    f"({error_floor:.3g}); convergence to the exact map's fixed point cannot be "
+                    "established beyond it (the denoiser's tolerance cannot be driven down)"
+                )
+                break
         denoiser_input = scheme.denoiser_input(v)
         trivial = monitor.trivial(len(relative), denoiser_input, self.denoiser.apply(denoiser_input))
         if trivial is not None:
@@ -185,6 +203,59 @@ class _Run:
             back_offs=back_offs,
             notes=notes,
         )
+
+
+class _DrivenTolerance(Denoiser):
+    """An inexact denoiser whose tolerance the run lowers along a summable schedule.
+
+    ``tol_k = tol_0 (k + 1)^(-SUMMABLE_POWER)``, floored at ``10 eps`` of the
+    iterates' dtype (below it the float arithmetic, not the inner solve, is
+    the error). The sum of the per-call errors is then finite, which is what
+    the Krasnosel'skii-Mann iteration with errors needs.
+    """
+
+    def __init__(self, denoiser: Denoiser, driver: Any, tolerance: float):
+        super().__init__(name=denoiser.name, sigma=denoiser.sigma, differentiable=False)
+        self._driver = driver
+        self.initial = tolerance
+        self.tolerance = tolerance
+
+    @classmethod
+    def of(cls, denoiser: Denoiser, tolerance: float) -> _DrivenTolerance | None:
+        driver = denoiser.tolerance_driver() if tolerance > 0 else None
+        return None if driver is None else cls(denoiser, driver, tolerance)
+
+    def schedule(self, iteration: int, dtype: torch.dtype) -> float:
+        return max(self.initial * (iteration + 1.0) ** -SUMMABLE_POWER, 10.0 * torch.finfo(dtype).eps)
+
+    def _denoise(self, t: torch.Tensor) -> torch.Tensor:
+        return self._driver(t, self.tolerance)
+
+
+#: Exponent of the inner-tolerance schedule (any value above 1 makes it summable).
+SUMMABLE_POWER = 1.1
+
+_INEXACT_THEOREM = (
+    "Krasnosel'skii-Mann iteration with summable errors (Combettes, \"Solving monotone inclusions "
+    "via compositions of nonexpansive averaged operators\", Optimization 53(5-6) 2004, 475-504; "
+    "theorem number from memory: Sec. 3)"
+)
+
+
+def _inexact_guarantee(guarantee: Guarantee, tolerance: float, driven: bool) -> Guarantee:
+    """The guarantee of a run whose denoiser is computed to a stated error."""
+    if driven:
+        text = (
+            f"inexact denoiser, tolerance driven down along the run: tol_k = {tolerance:.3g} (k + 1)^-"
+            f"{SUMMABLE_POWER:g} RMS per pixel, so the errors are summable and the iterates converge "
+            f"to a fixed point of the exact map ({_INEXACT_THEOREM})"
+        )
+        return replace(guarantee, assumptions=guarantee.assumptions + (text,))
+    text = (
+        f"inexact denoiser whose tolerance ({tolerance:.3g} RMS per pixel) cannot be driven down: the "
+        "guarantee is conditional on that error, and convergence is not declared below what it allows"
+    )
+    return replace(guarantee, status="conditional", assumptions=guarantee.assumptions + (text,))
 
 
 def _strongest(flags: list[Flag]) -> str:

@@ -53,6 +53,12 @@ class Algorithm:
         The governing variable the theory, and so the monitor, is about.
     start : callable
         ``start(fidelity, x0, step)``: the governing variable's first value.
+    error_gain : int
+        How many times one denoiser call's error can enter ``T v``: an
+        inexact denoiser with error at most ``e`` per call moves ``T v`` by at
+        most ``error_gain * e`` (forward-backward 1; Douglas-Rachford 3, since
+        ``D z`` enters ``z + prox(2 D z - z) - D z`` twice through a
+        nonexpansive prox and once directly).
     """
 
     name: str
@@ -63,6 +69,7 @@ class Algorithm:
     step_meaning: str
     variable: str
     start: StartRule
+    error_gain: int
 
 
 #: The algorithms, keyed by their API name, in the order printouts list them.
@@ -78,6 +85,7 @@ ALGORITHMS: dict[str, Algorithm] = {
             step_meaning="gradient step length eta",
             variable="x",
             start=_from_image,
+            error_gain=1,
         ),
         Algorithm(
             name="douglas_rachford",
@@ -88,6 +96,7 @@ ALGORITHMS: dict[str, Algorithm] = {
             step_meaning="prox parameter gamma of prox_{gamma f}",
             variable="z",
             start=_from_image,
+            error_gain=3,
         ),
         Algorithm(
             name="admm",
@@ -98,6 +107,7 @@ ALGORITHMS: dict[str, Algorithm] = {
             step_meaning="prox parameter gamma (penalty 1 / gamma)",
             variable="w = x + u",
             start=_from_data_prox,
+            error_gain=3,
         ),
     )
 }
