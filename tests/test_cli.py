@@ -6,7 +6,6 @@ import json
 import os
 import subprocess
 import sys
-import types
 from pathlib import Path
 
 import numpy as np
@@ -97,7 +96,7 @@ def _usage_error(capsys, argv, *words):
         ([], ["VERB"]),
         (["frobnicate"], ["invalid choice"]),
         (["benchmark", "--tasks", "superres-x3"], ["unknown task", "superres-x2"]),
-        (["benchmark", "--threads", "0"], ["positive integer"]),
+        (["benchmark", "--threads", "0"], ["--threads", "from 1 to"]),
         (["compare", "a.json"], ["required"]),
         (["compare", "a.json", "b.json"], ["does not exist"]),
         (["compare", "a.json", "b.json", "--aspects", "speed"], ["quality"]),
@@ -139,7 +138,9 @@ def test_check_user_callable_from_the_current_directory(tmp_path, frame, capsys,
     assert "ESTIMATED" in out
     assert "Caution: a convergence guarantee is not a correctness guarantee" in out
     _usage_error(capsys, ["check", "lab_filters:missing", str(frame)], "no attribute")
-    _usage_error(capsys, ["check", "lab_filters:not_callable", str(frame)], "not a denoiser")
+    _usage_error(capsys, ["check", "lab_filters:not_callable", str(frame)],
+                 "'lab_filters:not_callable' is an object of type int; expected a Denoiser")
+    _usage_error(capsys, ["check", "os:path", str(frame)], "is an object of type module; expected")
 
 
 def test_benchmark_compare_and_report(results, tmp_path):
@@ -168,16 +169,78 @@ def test_list_names(capsys):
     assert "ct-limited-120deg" in capsys.readouterr().out
 
 
-def test_demo_verb_calls_the_demo_main_with_its_arguments(monkeypatch):
-    # Stand-in for pnpguard.demo, so that the test checks the wiring, not the demo.
-    seen = {}
-    fake = types.ModuleType("pnpguard.demo")
+def test_demo_verb_runs_the_demo_at_the_requested_size_and_seed(capsys):
+    # The real demo, not a stand-in: the frame it prints is the one it built.
+    assert main(["demo", "--size", "32", "--seed", "5"]) == 0
+    out = capsys.readouterr().out
+    assert "synthetic 32x32 frame of fluorescent cells (seed 5)" in out
+    assert "128x128" not in out
+    assert "non-local means" in out and "refused:" in out
 
-    def fake_main():
-        seen["argv"] = list(sys.argv)
-        return 0
 
-    fake.main = fake_main
-    monkeypatch.setitem(sys.modules, "pnpguard.demo", fake)
-    assert main(["demo", "--fast"]) == 0
-    assert seen["argv"] == ["pnpguard demo", "--fast"]
+def test_unknown_arguments_are_refused_with_what_the_verb_accepts(capsys):
+    _usage_error(capsys, ["demo", "--bogus"], "unrecognized arguments: --bogus", "--size", "--seed")
+    _usage_error(capsys, ["list", "tasks", "extra"], "unrecognized arguments: extra",
+                 "usage: pnpguard list", "tasks")
+
+
+def test_values_out_of_range_are_usage_errors(frame, tmp_path, capsys):
+    _usage_error(capsys, ["check", "wavelet", str(frame), "--budget", "5"], "--budget", ">= 20", "'5'")
+    _usage_error(capsys, ["check", "wavelet", str(frame), "--margin", "1"], "--margin", "[0, 1)")
+    _usage_error(capsys, ["check", "nlm", str(frame), "--seed", str(2**64)], "--seed", "2**63")
+    _usage_error(capsys, ["check", "nlm", str(frame), "--seed", "-1"], "--seed", "'-1'")
+    _usage_error(capsys, ["check", "wavelet", str(tmp_path)], "is a directory")
+    _usage_error(capsys, ["demo", "--size", "8"], "--size", ">= 16")
+    _usage_error(capsys, ["benchmark", "--size", "8"], "--size", ">= 16")
+    tiny = ["benchmark", "--tasks", "superres-x2", "--size", "32", "--max-iter", "3", "--no-images"]
+    _usage_error(capsys, [*tiny, "--methods", "fb/nlm", "--check-budget", "5"], "--check-budget", ">= 20")
+    _usage_error(capsys, [*tiny, "--methods", "bicubic", "--output", str(tmp_path)], "--output",
+                 "is a directory")
+
+
+def test_report_mistakes_with_files_are_usage_errors(results, tmp_path, capsys):
+    taken = tmp_path / "taken"
+    taken.write_text("")
+    _usage_error(capsys, ["report", str(results), "--output", str(taken)], "cannot write", str(taken))
+    # A result file whose saved images are damaged.
+    copy = tmp_path / "copy.json"
+    copy.write_text(results.read_text())
+    (tmp_path / json.loads(results.read_text())["images"]).write_bytes(b"PK\x03\x04 truncated")
+    _usage_error(capsys, ["report", str(copy), "--output", str(tmp_path / "out")],
+                 "cannot read the images saved with", str(copy))
+
+
+def test_thread_count_beyond_the_machine_is_refused_before_any_run(tmp_path):
+    # A huge torch thread count crashes the interpreter (segmentation fault), hence a
+    # subprocess: the command line must refuse it while parsing.
+    done = run("benchmark", "--threads", "100000", "--tasks", "superres-x2", "--methods", "bicubic",
+               "--size", "32", "--no-images", "--output", str(tmp_path / "out.json"))
+    assert_usage_error(done, "--threads", f"1 to {os.cpu_count()}")
+
+
+def test_list_tasks_is_a_table(capsys):
+    from pnpguard.bench import get_task, task_names
+
+    assert main(["list", "tasks"]) == 0
+    lines = capsys.readouterr().out.rstrip("\n").splitlines()
+    columns = ["task", "family", "forward model", "noise", "phantom"]
+    starts = [lines[0].index(column) for column in columns]
+    assert starts == sorted(starts)
+    assert set(lines[1]) <= {"-", " "}
+    rows = lines[2:]
+    assert len(rows) == len(task_names())
+    models = {}
+    for row, name in zip(rows, task_names()):
+        assert "{" not in row and "'" not in row
+        cells = [row[a:b].strip() for a, b in zip(starts, [*starts[1:], None])]
+        task = get_task(name)
+        assert cells[0] == name and cells[1] == task.family and cells[4] == task.phantom
+        assert cells[3] == f"{100 * task.noise:g} %"
+        models[name] = cells[2]
+    # The settings of one task per family, written out (bench/_tasks.py, TASKS).
+    assert models["deblur-motion-1pct"] == "motion blur, length 7 px at 30 deg (9x9 kernel), periodic"
+    assert models["deblur-gaussian-5pct"] == "Gaussian blur, sigma 1.6 px (9x9 kernel), periodic"
+    assert models["inpaint-random80"] == "80 % of pixels missing at random"
+    assert models["inpaint-rows-scratches"] == "10 % of rows missing, 4 scratches"
+    assert models["superres-x4"] == "4x4 box average, subsampled by 4, periodic"
+    assert models["ct-limited-120deg"] == "parallel beam, 60 views over 120 deg"

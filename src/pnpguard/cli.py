@@ -2,7 +2,7 @@
 
 Verbs::
 
-    pnpguard demo                          run the main demonstration
+    pnpguard demo [--size N] [--seed N]    run the main demonstration
     pnpguard check DENOISER IMAGE          check a denoiser, print guarantees per algorithm
     pnpguard benchmark [SUITE]             run a benchmark suite into a result file
     pnpguard compare OLD NEW               compare two result files (exit 1 on a regression)
@@ -10,7 +10,9 @@ Verbs::
     pnpguard list WHAT                     list suites, tasks, denoisers or phantoms
 
 Exit status: 0 on success, 1 when ``compare`` finds a regression, 2 on a
-usage error (printed as one line starting with ``pnpguard: error:``).
+usage error (printed as one line starting with ``pnpguard: error:``). Values are
+checked while parsing, so a mistake never starts a run; unknown arguments are
+refused with the verb's usage line.
 """
 
 from __future__ import annotations
@@ -20,13 +22,20 @@ import importlib
 import os
 import sys
 import warnings
-from collections.abc import Sequence
+import zipfile
+from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any, NoReturn
 
 import numpy as np
 
 PROG = "pnpguard"
+
+#: Smallest image side the verbs accept (the SSIM window and the blur kernels fit).
+MIN_SIDE = 16
+
+#: Largest seed: the searches seed torch generators, which take 64-bit signed integers.
+MAX_SEED = 2**63 - 1
 
 
 class UsageError(Exception):
@@ -44,6 +53,8 @@ class _Parser(argparse.ArgumentParser):
 def _load_image(path: str) -> np.ndarray:
     """A grey float64 image from ``.npy`` or any format scikit-image reads."""
     file = Path(path)
+    if file.is_dir():
+        raise UsageError(f"image {path!r} is a directory; expected an image file")
     if not file.is_file():
         raise UsageError(f"image file {path!r} does not exist")
     try:
@@ -75,8 +86,9 @@ def _load_image(path: str) -> np.ndarray:
     image = image.astype(np.float64)
     if not np.isfinite(image).all():
         raise UsageError(f"image {path!r} has non-finite pixels")
-    if min(image.shape) < 16:
-        raise UsageError(f"image {path!r} is {image.shape[0]}x{image.shape[1]}; use at least 16x16 pixels")
+    if min(image.shape) < MIN_SIDE:
+        height, width = image.shape
+        raise UsageError(f"image {path!r} is {height}x{width}; use at least {MIN_SIDE}x{MIN_SIDE} pixels")
     return image
 
 
@@ -116,7 +128,10 @@ def _user_denoiser(spec: str, strength: float | None) -> Any:
             raise UsageError(f"{spec!r} is already a Denoiser; --strength applies to functions and modules only")
         return obj
     if not (callable(obj) or isinstance(obj, torch.nn.Module)):
-        raise UsageError(f"{spec!r} is a {type(obj).__name__}, not a denoiser, module or function")
+        raise UsageError(
+            f"{spec!r} is an object of type {type(obj).__name__}; expected a Denoiser, a torch module "
+            "or a function image -> image"
+        )
     return as_denoiser(obj, name=spec.partition(":")[2], sigma=strength)
 
 
@@ -131,31 +146,54 @@ def _strength_for(name: str, task: str, given: float | None) -> tuple[float, str
         return get_denoiser(name).default_strength, "registry default"
 
 
-def _positive_int(text: str) -> int:
+def _integer(low: int, high: int | None = None, *, expected: str | None = None) -> Callable[[str], int]:
+    """An argparse type: an integer in ``[low, high]`` (no upper end when ``high`` is None)."""
+    if expected is None:
+        if high is not None:
+            expected = f"an integer from {low} to {high}"
+        else:
+            expected = "a positive integer" if low == 1 else f"an integer >= {low}"
+
+    def convert(text: str) -> int:
+        try:
+            value = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"expected {expected}, got {text!r}") from None
+        if value < low or (high is not None and value > high):
+            raise argparse.ArgumentTypeError(f"expected {expected}, got {text!r}")
+        return value
+
+    return convert
+
+
+def _number(text: str, expected: str, admissible: Callable[[float], bool]) -> float:
     try:
-        value = int(text)
+        value = float(text)
     except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a positive integer, got {text!r}") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected a positive integer, got {text!r}")
+        raise argparse.ArgumentTypeError(f"expected {expected}, got {text!r}") from None
+    if not (np.isfinite(value) and admissible(value)):
+        raise argparse.ArgumentTypeError(f"expected {expected}, got {text!r}")
     return value
 
 
 def _nonnegative_float(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
-    if not (np.isfinite(value) and value >= 0):
-        raise argparse.ArgumentTypeError(f"expected a non-negative number, got {text!r}")
-    return value
+    return _number(text, "a non-negative number", lambda value: value >= 0)
 
 
 def _positive_float(text: str) -> float:
-    value = _nonnegative_float(text)
-    if value == 0:
-        raise argparse.ArgumentTypeError(f"expected a positive number, got {text!r}")
-    return value
+    return _number(text, "a positive number", lambda value: value > 0)
+
+
+def _fraction(text: str) -> float:
+    return _number(text, "a number in [0, 1)", lambda value: 0 <= value < 1)
+
+
+_positive_int = _integer(1)
+_seed = _integer(0, MAX_SEED, expected="an integer from 0 to 2**63 - 1")
+_side = _integer(MIN_SIDE)
+# torch crashes the interpreter on absurd thread counts: allow up to the machine's CPUs.
+_CPUS = os.cpu_count() or 1
+_threads = _integer(1, _CPUS, expected=f"an integer from 1 to {_CPUS} (the CPUs of this machine)")
 
 
 def _aspects(text: str) -> tuple[str, ...]:
@@ -172,19 +210,10 @@ def _aspects(text: str) -> tuple[str, ...]:
 
 # --------------------------------------------------------------------- verbs
 def _demo(args: argparse.Namespace) -> int:
-    try:
-        demo = importlib.import_module("pnpguard.demo")
-    except ModuleNotFoundError as error:
-        if error.name == "pnpguard.demo":
-            raise UsageError("the demo is not part of this installation of pnpguard") from None
-        raise
-    saved = sys.argv
-    sys.argv = [f"{PROG} demo", *args.demo_args]
-    try:
-        status = demo.main()
-    finally:
-        sys.argv = saved
-    return int(status or 0)
+    from .demo import run_demo
+
+    run_demo(size=args.size, seed=args.seed)
+    return 0
 
 
 def _check(args: argparse.Namespace) -> int:
@@ -266,6 +295,8 @@ def _benchmark(args: argparse.Namespace) -> int:
     except (ValueError, FileNotFoundError) as error:
         raise UsageError(str(error)) from None
     output = Path(args.output or f"benchmark-{suite.name}.json")
+    if output.is_dir():
+        raise UsageError(f"argument --output: {str(output)!r} is a directory; expected a file name")
     try:
         run = run_suite(
             suite,
@@ -278,7 +309,11 @@ def _benchmark(args: argparse.Namespace) -> int:
         )
     except (ValueError, KeyError) as error:
         raise UsageError(str(error.args[0])) from None
-    path = run.save(output, images=args.images)
+    try:
+        path = run.save(output, images=args.images)
+    except OSError as error:
+        reason = error.strerror or error
+        raise UsageError(f"cannot write the results to {str(output)!r}: {reason}") from None
     document = run.document
     print(f"suite {suite.name}: {len(document['results'])} runs in {document['seconds']:.1f} s")
     for task in document["tasks"]:
@@ -317,12 +352,18 @@ def _report(args: argparse.Namespace) -> int:
         document = load_results(args.results)
     except (ValueError, FileNotFoundError) as error:
         raise UsageError(str(error)) from None
-    arrays = {} if args.no_figures else load_arrays(args.results, document)
+    try:
+        arrays = {} if args.no_figures else load_arrays(args.results, document)
+    except (OSError, ValueError, zipfile.BadZipFile) as error:
+        raise UsageError(f"cannot read the images saved with {args.results!r}: {error}") from None
     directory = Path(args.output or Path(args.results).with_suffix("").name + "-report")
     try:
         path = write_report(document, directory, arrays=arrays)
     except ImportError as error:
         raise UsageError(str(error)) from None
+    except OSError as error:
+        reason = error.strerror or error
+        raise UsageError(f"cannot write the report to {str(directory)!r}: {reason}") from None
     print(f"wrote {path}" + (" and figures" if arrays else " (no figures: no images saved with the results)"))
     if document.get("caution"):
         print(CAUTION)
@@ -339,10 +380,12 @@ def _list(args: argparse.Namespace) -> int:
             print(f"{name}: {len(suite.tasks)} tasks at {suite.shape[0]}x{suite.shape[1]}, "
                   f"max_iter {suite.max_iter}: {', '.join(t.name for t in suite.tasks)}")
     elif args.what == "tasks":
+        rows = []
         for name in task_names():
             task = get_task(name)
-            print(f"{name}: {task.family}, {task.model.describe()}, noise {100 * task.noise:g} %, "
-                  f"phantom {task.phantom}")
+            noise = f"{100 * task.noise:g} %"
+            rows.append((name, task.family, task.model.summary(), noise, task.phantom))
+        print(_table(("task", "family", "forward model", "noise (of peak)", "phantom"), rows))
     elif args.what == "denoisers":
         for entry in shipped_denoisers():
             print(f"{entry.name}: {entry.description}; strength = {entry.strength}; {entry.structure}")
@@ -351,11 +394,22 @@ def _list(args: argparse.Namespace) -> int:
     return 0
 
 
+def _table(header: Sequence[str], rows: Sequence[Sequence[str]]) -> str:
+    """A plain-text table: the header, a rule, the rows; columns left-aligned, two spaces apart."""
+    widths = [max(len(cell) for cell in column) for column in zip(header, *rows)]
+    lines = [header, ["-" * width for width in widths], *rows]
+    return "\n".join(
+        "  ".join(cell.ljust(width) for cell, width in zip(line, widths)).rstrip() for line in lines
+    )
+
+
 # -------------------------------------------------------------------- parser
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser of the ``pnpguard`` command."""
     from . import __version__
     from .bench import DEFAULT_PSNR_TOL, DEFAULT_SSIM_TOL, suite_names
+    from .check._check import MIN_BUDGET
+    from .demo import DEFAULT_SEED, DEFAULT_SIZE, MIN_SIZE
 
     parser = _Parser(
         prog=PROG,
@@ -366,8 +420,13 @@ def build_parser() -> argparse.ArgumentParser:
     verbs = parser.add_subparsers(dest="verb", metavar="VERB", required=True)
 
     demo = verbs.add_parser("demo", help="run the main demonstration",
-                            description="Run the main demonstration of the library; further "
-                            "arguments are passed to it.")
+                            description="Run the main demonstration of the library: deblur a "
+                            "synthetic microscope frame of cells with a guarantee, and show the "
+                            "refusal of a black-box denoiser.")
+    demo.add_argument("--size", type=_integer(MIN_SIZE), default=DEFAULT_SIZE, metavar="N",
+                      help=f"side of the frame in pixels, at least {MIN_SIZE} (default: %(default)s)")
+    demo.add_argument("--seed", type=_seed, default=DEFAULT_SEED, metavar="N",
+                      help="seed of the frame and of the noise (default: %(default)s)")
     demo.set_defaults(run=_demo)
 
     check = verbs.add_parser(
@@ -388,11 +447,12 @@ def build_parser() -> argparse.ArgumentParser:
     check.add_argument("--strength", type=_positive_float, default=None,
                        help="denoiser strength (shipped denoisers: default the tuned value for the "
                        "task; callables: recorded as their noise level)")
-    check.add_argument("--budget", type=_positive_int, default=200,
-                       help="denoiser calls for a black-box check (default: %(default)s, minimum 20)")
-    check.add_argument("--seed", type=int, default=0, help="seed of the check's search (default: 0)")
-    check.add_argument("--margin", type=_nonnegative_float, default=0.05,
-                       help="relative inflation of estimated constants (default: %(default)s)")
+    check.add_argument("--budget", type=_integer(MIN_BUDGET), default=200,
+                       help=f"denoiser calls for a black-box check, at least {MIN_BUDGET} "
+                       "(default: %(default)s)")
+    check.add_argument("--seed", type=_seed, default=0, help="seed of the check's search (default: 0)")
+    check.add_argument("--margin", type=_fraction, default=0.05,
+                       help="relative inflation of estimated constants, in [0, 1) (default: %(default)s)")
     check.add_argument("--cross-check", action="store_true",
                        help="also search pairs when the structure proves the constants")
     check.set_defaults(run=_check)
@@ -411,13 +471,16 @@ def build_parser() -> argparse.ArgumentParser:
     bench.add_argument("--tasks", nargs="+", default=None, help="run only these tasks")
     bench.add_argument("--methods", nargs="+", default=None,
                        help="run only these methods, e.g. tikhonov fb/wavelet")
-    bench.add_argument("--size", type=_positive_int, default=None, help="image side in pixels (default: the suite's)")
+    bench.add_argument("--size", type=_side, default=None,
+                       help=f"image side in pixels, at least {MIN_SIDE} (default: the suite's)")
     bench.add_argument("--max-iter", type=_positive_int, default=None, help="iteration cap of PnP runs (default: the suite's)")
-    bench.add_argument("--check-budget", type=_positive_int, default=None,
-                       help="denoiser calls per black-box check (default: the suite's)")
-    bench.add_argument("--seed", type=int, default=0, help="seed of the denoiser checks (default: 0)")
-    bench.add_argument("--threads", type=_positive_int, default=1,
-                       help="torch threads; 1 (default) gives identical numbers on reruns")
+    bench.add_argument("--check-budget", type=_integer(MIN_BUDGET), default=None,
+                       help=f"denoiser calls per black-box check, at least {MIN_BUDGET} "
+                       "(default: the suite's)")
+    bench.add_argument("--seed", type=_seed, default=0, help="seed of the denoiser checks (default: 0)")
+    bench.add_argument("--threads", type=_threads, default=1,
+                       help="torch threads, at most the machine's CPUs; 1 (default) gives identical "
+                       "numbers on reruns")
     bench.add_argument("--tuned", default=None, help="tuned-parameter file (default: the shipped one)")
     bench.add_argument("--images", action=argparse.BooleanOptionalAction, default=True,
                        help="save truths, data, reconstructions and residual curves (.npz)")
@@ -461,6 +524,9 @@ def build_parser() -> argparse.ArgumentParser:
                                description="List what the other verbs accept by name.")
     listing.add_argument("what", choices=("denoisers", "phantoms", "suites", "tasks"))
     listing.set_defaults(run=_list)
+    for verb in verbs.choices.values():
+        # One line naming everything the verb accepts, for the unknown-argument error.
+        verb.set_defaults(usage=" ".join(verb.format_usage().split()))
     return parser
 
 
@@ -475,13 +541,13 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         parser = build_parser()
         args, extra = parser.parse_known_args(argv)
-        if args.verb == "demo":
-            args.demo_args = extra  # everything after "demo" belongs to the demo
-        elif extra:
-            parser.error(f"unrecognized arguments: {' '.join(extra)}")
+        if extra:
+            raise UsageError(f"unrecognized arguments: {' '.join(extra)}; {args.usage}")
         return args.run(args)
     except UsageError as error:
-        print(f"{PROG}: error: {error}", file=sys.stderr)
+        # One line, whatever the message (a user's exception may span several).
+        print(f"{PROG}: error: {' '.join(line.strip() for line in str(error).splitlines())}",
+              file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print(f"{PROG}: interrupted", file=sys.stderr)

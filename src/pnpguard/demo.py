@@ -1,6 +1,7 @@
 """The main job, end to end: deblur a microscope frame of cells with a guarantee.
 
-Run with ``python -m pnpguard.demo`` (or ``make demo``). The scene: the lab's
+Run with ``pnpguard demo``, ``python -m pnpguard.demo`` or ``make demo``
+(options ``--size N`` and ``--seed N``). The scene: the lab's
 widefield microscope blurs a frame of fluorescent cells (Gaussian point-spread
 function, 1.6 px) and adds 1 % noise. The demo
 
@@ -13,7 +14,9 @@ function, 1.6 px) and adds 1 % noise. The demo
 
 from __future__ import annotations
 
+import sys
 import time
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -27,6 +30,14 @@ from .guarantee import Refused
 from .metrics import psnr
 from .operators import Convolution, gaussian_psf
 from .solvers import Reconstruction, admm, forward_backward
+
+
+#: Default side of the frame in pixels.
+DEFAULT_SIZE = 128
+#: Smallest side: the 9 x 9 point-spread function with room around it.
+MIN_SIZE = 16
+#: Default seed of the frame and of the noise.
+DEFAULT_SEED = 3
 
 
 @dataclass(frozen=True)
@@ -44,18 +55,25 @@ def _section(title: str) -> None:
     print(f"\n== {title} " + "=" * max(0, 70 - len(title)))
 
 
-def run_demo(*, size: int = 128, seed: int = 3, verbose: bool = True) -> DemoOutcome:
+def run_demo(*, size: int = DEFAULT_SIZE, seed: int = DEFAULT_SEED, verbose: bool = True) -> DemoOutcome:
     """Run the demo and return its numbers.
 
     Parameters
     ----------
     size : int
-        Side of the synthetic frame in pixels.
+        Side of the synthetic frame in pixels, at least ``MIN_SIZE`` (16).
     seed : int
         Seed of the frame and of the noise.
     verbose : bool
         Print the reports as the demo goes.
+
+    Raises
+    ------
+    ValueError
+        If ``size`` is not an integer >= ``MIN_SIZE``.
     """
+    if isinstance(size, bool) or not isinstance(size, int) or size < MIN_SIZE:
+        raise ValueError(f"`size` must be an integer >= {MIN_SIZE}, got {size!r}")
     say = print if verbose else (lambda *args, **kwargs: None)
     start = time.perf_counter()
     truth = phantoms.cells(size, seed=seed)
@@ -66,7 +84,8 @@ def run_demo(*, size: int = 128, seed: int = 3, verbose: bool = True) -> DemoOut
     data_psnr = psnr(data, truth, data_range=1.0)
     if verbose:
         _section("scene")
-    say(f"synthetic {size}x{size} frame of fluorescent cells, blurred by {blur!r}")
+    say(f"synthetic {truth.shape[0]}x{truth.shape[1]} frame of fluorescent cells (seed {seed}), "
+        f"blurred by {blur!r}")
     say(f"noise 1 % of full scale; data PSNR {data_psnr:.2f} dB")
     say(f"data term: L = {fidelity.lipschitz:.4g} (certified), mu = {fidelity.strong_convexity:.3g}")
 
@@ -113,10 +132,22 @@ def run_demo(*, size: int = 128, seed: int = 3, verbose: bool = True) -> DemoOut
     return DemoOutcome(data_psnr, runs, caught, black_box, seconds)
 
 
-def main() -> int:
-    """Entry point of ``python -m pnpguard.demo``."""
-    run_demo()
-    return 0
+def main(argv: Sequence[str] | None = None) -> int:
+    """Entry point of ``python -m pnpguard.demo``: the same as ``pnpguard demo``.
+
+    Parameters
+    ----------
+    argv : sequence of str, optional
+        Options of the demo (``--size N``, ``--seed N``); default ``sys.argv[1:]``.
+
+    Returns
+    -------
+    int
+        Exit status: 0, or 2 after a usage error (one line on standard error).
+    """
+    from .cli import main as command_line
+
+    return command_line(["demo", *(sys.argv[1:] if argv is None else argv)])
 
 
 if __name__ == "__main__":

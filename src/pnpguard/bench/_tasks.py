@@ -74,6 +74,14 @@ class Blur:
         return {"kind": "blur", "psf": self.psf, "size": self.size, "width": self.width,
                 "angle": self.angle, "boundary": "periodic"}
 
+    def summary(self) -> str:
+        """One line for people, e.g. ``Gaussian blur, sigma 1.6 px (9x9 kernel), periodic``."""
+        if self.psf == "gaussian":
+            blur = f"Gaussian blur, sigma {self.width:g} px"
+        else:
+            blur = f"motion blur, length {self.width:g} px at {self.angle:g} deg"
+        return f"{blur} ({self.size}x{self.size} kernel), periodic"
+
 
 @dataclass(frozen=True)
 class Mask:
@@ -109,6 +117,12 @@ class Mask:
         return {"kind": "mask", "pattern": self.pattern, "missing": self.missing,
                 "scratches": self.scratches}
 
+    def summary(self) -> str:
+        """One line for people, e.g. ``50 % of pixels missing at random``."""
+        if self.pattern == "random":
+            return f"{100 * self.missing:g} % of pixels missing at random"
+        return f"{100 * self.missing:g} % of rows missing, {self.scratches} scratches"
+
 
 @dataclass(frozen=True)
 class Downsampling:
@@ -127,6 +141,10 @@ class Downsampling:
 
     def describe(self) -> dict:
         return {"kind": "decimation", "factor": self.factor, "psf": "box", "boundary": "periodic"}
+
+    def summary(self) -> str:
+        """One line for people, e.g. ``2x2 box average, subsampled by 2, periodic``."""
+        return f"{self.factor}x{self.factor} box average, subsampled by {self.factor}, periodic"
 
 
 @dataclass(frozen=True)
@@ -154,6 +172,10 @@ class Scan:
 
     def describe(self) -> dict:
         return {"kind": "parallel_projection", "views": self.views, "arc_degrees": self.arc}
+
+    def summary(self) -> str:
+        """One line for people, e.g. ``parallel beam, 30 views over 180 deg``."""
+        return f"parallel beam, {self.views} views over {self.arc:g} deg"
 
 
 Model = Blur | Mask | Downsampling | Scan
