@@ -4,7 +4,7 @@ Prints (1) seconds per call on 256x256 and 512x512 float32 images for the
 residual CNN and the averaged CNN (median of repeated calls, torch threads as
 given), and (2) a PSNR table on the held-out bundled pictures camera, moon and
 brick at noise levels 15, 25 and 50 (0-255 scale): residual CNN, averaged CNN
-for theta in {0.5, 0.75, 0.9}, its widened variant (gain gamma > 1, no
+for theta in {0.5, 0.75, 0.9}, its widened variant (gain > 1, no
 guarantee), and pnpguard's total-variation and
 wavelet soft-thresholding denoisers with their parameter tuned on a grid, in
 two ways: per image and level (the best value kept for each picture: an oracle
@@ -34,7 +34,7 @@ from pnpguard.learned._evaluate import EVALUATION_LEVELS, held_out_table
 
 THETAS = (0.5, 0.75, 0.9)
 #: Gains of the widened variant (no guarantee), at theta = 0.9.
-GAMMAS = (1.1, 1.25)
+GAINS = (1.1, 1.25)
 #: TV weight grid, in units of sigma.
 TV_FACTORS = (0.4, 0.55, 0.7, 0.85, 1.0, 1.2, 1.5, 1.9)
 #: Wavelet threshold grid, in units of sigma.
@@ -128,8 +128,8 @@ def main() -> None:
     rows = {"residual CNN": held_out_table(network(residual_cnn))}
     for theta in THETAS:
         rows[f"averaged CNN theta={theta:g}"] = held_out_table(network(averaged_cnn, theta=theta))
-    for gamma in GAMMAS:
-        rows[f"widened theta=0.9 gamma={gamma:g}"] = held_out_table(network(averaged_cnn, theta=0.9, gamma=gamma))
+    for gain in GAINS:
+        rows[f"widened theta=0.9 gain={gain:g}"] = held_out_table(network(averaged_cnn, theta=0.9, gain=gain))
     if not args.skip_classical:
         grids = {"TV": TV_FACTORS, "wavelet db4": WAVELET_FACTORS}
         makers = {

@@ -75,7 +75,8 @@ RUNS = {
         "architecture": "averaged",
         "network": {"depth": 8, "width": 32},
         "stages": [
-            {"steps": 6000, "batch_size": 16, "patch_size": 40, "low_contrast": 0.25, "learning_rate": 1e-3, "seed": 0},
+            {"steps": 6000, "batch_size": 16, "patch_size": 40, "low_contrast": 0.25, "learning_rate": 1e-3, "seed": 0,
+             "default_theta": 0.9},
         ],
     },
 }

@@ -2,18 +2,20 @@
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 import pytest
 import torch
 
-from pnpguard import Denoiser, DenoiserError, Fact, as_denoiser, relaxed
+from pnpguard import Denoiser, DenoiserError, Fact, as_denoiser, check_denoiser, relaxed
 
 DTYPES = [np.float32, np.float64]
 TORCH_DTYPE = {np.float32: torch.float32, np.float64: torch.float64}
 
 
 def _numpy_halve(x: np.ndarray) -> np.ndarray:
-    # Uses a numpy-only method, so the torch trial call fails and numpy is detected.
+    # Annotated as numpy, so numpy is chosen without a trial call.
     return x.astype(x.dtype) * 0.5
 
 
@@ -64,8 +66,8 @@ def test_numpy_function_detected_and_given_2d_images():
     den = as_denoiser(record)
     den(np.zeros((2, 3, 4, 5)))
     assert den._backend == "numpy"
-    # one torch trial call on the whole tensor fails, then six numpy calls, one per image
-    assert seen == [(2, 3, 4, 5)] + [(4, 5)] * 6
+    # six numpy calls, one per image; the first one decided the backend and was kept
+    assert seen == [(4, 5)] * 6
 
 
 def test_input_never_modified():
@@ -295,3 +297,85 @@ def test_relaxed_proximal_and_nesting():
     assert relaxed(den, 1.0) is den
     with pytest.raises(ValueError, match=r"\(0, 1\]"):
         relaxed(den, 0.0)
+
+
+# ----------------------------------------------- backend detection (no probes)
+def _clip_to_unit(x):
+    # numpy-only in intent; numpy ufuncs also accept torch tensors, with a
+    # DeprecationWarning about __array_wrap__ under numpy 2 (a torch probe leaks it)
+    return np.clip(x, 0.0, 1.0)
+
+
+def _crop_border(x):
+    # written for 2-D images: drops one pixel on each side (a wrong output shape)
+    return x[1:-1, 1:-1]
+
+
+def _smooth_rows(x):
+    # written for 2-D images; on a (N, C, H, W) tensor it would run silently on the wrong axes
+    out = 0.5 * x
+    out[1:-1] = 0.25 * x[:-2] + 0.5 * x[1:-1] + 0.25 * x[2:]
+    return out
+
+
+def test_numpy_function_sees_only_numpy_images_and_raises_no_warning():
+    seen = []
+
+    def record(x):
+        seen.append((type(x), tuple(x.shape)))
+        return _clip_to_unit(x)
+
+    den = as_denoiser(record)
+    x = np.random.default_rng(0).random((6, 7))
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        out = den(x)
+        den.apply(torch.from_numpy(x)[None, None])
+    assert [str(w.message) for w in caught] == []
+    assert seen == [(np.ndarray, (6, 7))] * 2
+    np.testing.assert_array_equal(out, np.clip(x, 0.0, 1.0))  # reference: numpy.clip
+
+
+def test_numpy_function_for_2d_images_is_never_given_a_batch():
+    image = np.random.default_rng(1).random((12, 12))
+    den = as_denoiser(_smooth_rows)
+    check_denoiser(den, image, budget=20)  # the check works on (N, 1, H, W) batches
+    # reference: the user's function applied directly to the 2-D image
+    np.testing.assert_allclose(den(image[None, None])[0, 0], _smooth_rows(image), rtol=1e-12)
+
+
+def test_shape_errors_speak_of_the_users_images():
+    with pytest.raises(DenoiserError) as info:
+        check_denoiser(as_denoiser(_crop_border, name="crop"), np.zeros((32, 32)), budget=20)
+    message = str(info.value)
+    assert "(30, 30)" in message and "(32, 32)" in message
+    assert "(0, 0, 32, 32)" not in message and "(1, 1, 32, 32)" not in message
+
+
+def test_backend_from_annotations_and_from_a_numpy_trial():
+    seen = []
+
+    def torch_scale(x: torch.Tensor) -> torch.Tensor:
+        seen.append(type(x))
+        return 0.5 * x
+
+    def untyped_torch(x):
+        seen.append(type(x))
+        return torch.clamp(x, 0.0, 1.0)  # fails on numpy arrays: a torch function
+
+    x = np.random.default_rng(2).random((5, 6))
+    np.testing.assert_allclose(as_denoiser(torch_scale)(x), 0.5 * x)
+    assert seen == [torch.Tensor]
+    seen.clear()
+    np.testing.assert_allclose(as_denoiser(untyped_torch)(x), x)
+    assert seen == [np.ndarray, torch.Tensor]  # one numpy trial, then torch for good
+
+
+def test_a_function_failing_both_ways_names_both_failures_with_shapes():
+    def broken(x):
+        raise RuntimeError("boom")
+
+    with pytest.raises(DenoiserError) as info:
+        as_denoiser(broken)(np.zeros((4, 5)))
+    message = str(info.value)
+    assert "boom" in message and "(4, 5)" in message and "backend=" in message

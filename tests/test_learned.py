@@ -201,20 +201,56 @@ def test_averaged_network_keeps_the_mean_and_commutes_with_brightness_shifts():
 
 
 def test_gain_above_one_drops_every_claim_and_scales_the_network_part():
-    theta, gamma, sigma = 0.75, 1.1, 20 / 255
-    widened = averaged_cnn(sigma, theta=theta, gamma=gamma)
+    theta, gain, sigma = 0.75, 1.1, 20 / 255
+    widened = averaged_cnn(sigma, theta=theta, gain=gain)
+    assert widened.name == "widened CNN (theta=0.75, gain=1.1)"
     assert widened.facts == ()
     image = torch.from_numpy(bundled_image("camera")[:24, :24])[None, None]
     network = load_network(AVERAGED_WEIGHTS)
     with torch.no_grad():
         part = network.nonexpansive_part(image, sigma, theta)
         mean = image.mean()
-        expected = (1 - theta) * image + theta * (mean + gamma * (part - mean))
+        expected = (1 - theta) * image + theta * (mean + gain * (part - mean))
     torch.testing.assert_close(widened(image), expected, rtol=1e-5, atol=1e-6)
-    with pytest.raises(ValueError, match="gamma"):
-        averaged_cnn(sigma, theta=theta, gamma=0.9)
-    with pytest.raises(ValueError, match="gamma"):
-        load_denoiser(RESIDUAL_WEIGHTS, sigma, gamma=1.1)
+    with pytest.raises(ValueError, match="`gain` must be a number in"):
+        averaged_cnn(sigma, theta=theta, gain=0.9)
+    with pytest.raises(ValueError, match="`gain` apply to averaged networks only"):
+        load_denoiser(RESIDUAL_WEIGHTS, sigma, gain=1.1)
+
+
+def test_theta_defaults_to_the_value_the_weights_file_records(tmp_path):
+    # shipped file: the recorded default (0.9) is what averaged_cnn uses without `theta`
+    recorded = read_weights(AVERAGED_WEIGHTS)["training"]["default_theta"]
+    assert recorded == 0.9
+    assert averaged_cnn(0.1).facts[0].theta == recorded
+    assert load_denoiser(AVERAGED_WEIGHTS, 0.1).name == "averaged CNN (theta=0.9)"
+    assert load_denoiser(AVERAGED_WEIGHTS, 0.1, theta=0.6).facts[0].theta == 0.6  # overridable
+    # a file that records no default needs `theta`
+    payload = read_weights(AVERAGED_WEIGHTS)
+    training = {key: value for key, value in payload["training"].items() if key != "default_theta"}
+    bare = tmp_path / "bare.pt"
+    torch.save({**payload, "training": training}, bare)
+    with pytest.raises(ValueError, match="`theta` is required: .*records no default theta"):
+        load_denoiser(bare, 0.1)
+    assert load_denoiser(bare, 0.1, theta=0.7).facts[0].theta == 0.7
+
+
+def test_training_records_the_default_theta(tmp_path):
+    image = bundled_image("camera")[100:164, 100:164]
+    settings = {
+        "architecture": "averaged", "depth": 2, "width": 9, "steps": 1, "patch_size": 24,
+        "batch_size": 2, "theta_range": (0.6, 0.9), "progress": False,
+    }
+    middle = train_denoiser([image], save_to=tmp_path / "middle.pt", **settings)
+    # default: the middle of theta_range, (0.6 + 0.9) / 2
+    assert read_weights(middle.path)["training"]["default_theta"] == pytest.approx(0.75)
+    assert load_denoiser(middle.path, 0.1).facts[0].theta == pytest.approx(0.75)
+    chosen = train_denoiser([image], save_to=tmp_path / "chosen.pt", default_theta=0.8, **settings)
+    assert load_denoiser(chosen.path, 0.1).facts[0].theta == 0.8
+    with pytest.raises(ValueError, match=r"`default_theta` must be a number in `theta_range` \[0.6, 0.9\], got 0.95"):
+        train_denoiser([image], default_theta=0.95, **settings)
+    with pytest.raises(ValueError, match="`default_theta` do not apply to the 'residual' architecture"):
+        train_denoiser([image], architecture="residual", steps=1, default_theta=0.8, progress=False)
 
 
 def test_tampered_weights_lose_the_averagedness_claim(tmp_path):
@@ -255,8 +291,7 @@ def test_training_reduces_loss_and_saves_loadable_weights(tmp_path, architecture
     report = train_denoiser([image], save_to=tmp_path / "mine.pt", **settings)
     assert report.steps == 40 and len(report.losses) == 2
     assert report.losses[-1] < report.losses[0]
-    options = {"theta": 0.75} if architecture == "averaged" else {}
-    denoiser = load_denoiser(report.path, 0.1, **options)
+    denoiser = load_denoiser(report.path, 0.1)
     assert denoiser(image).shape == image.shape
     if architecture == "averaged":
         assert denoiser.facts[0].verified

@@ -420,17 +420,6 @@ def test_unknown_option_is_named_with_a_hint():
     assert "max_iter" in inspect.signature(pg.admm).parameters
 
 
-def test_import_works_without_docstrings():
-    # Under python -OO every __doc__ is None; the package must still import.
-    import os
-    import subprocess
-    import sys
-
-    env = dict(os.environ, PYTHONPATH=os.pathsep.join(sys.path))
-    done = subprocess.run([sys.executable, "-OO", "-c", "import pnpguard"], env=env, capture_output=True, text=True)
-    assert done.returncode == 0, done.stderr
-
-
 def test_a_denoiser_that_does_nothing_is_flagged_as_a_trivial_fixed_point():
     # Inpainting from the zero-filled start A^T y: with a denoiser that does nothing the
     # start is already a fixed point of forward-backward (grad f vanishes there).

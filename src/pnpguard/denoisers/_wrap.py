@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import inspect
 from collections.abc import Callable, Iterable
 from typing import Any
 
@@ -12,6 +13,8 @@ from ._base import Denoiser, DenoiserError
 from ._facts import ClaimLike, as_claim
 
 _BACKENDS = ("numpy", "torch")
+#: Words in an annotation that name each backend's array type.
+_ANNOTATIONS = {"numpy": ("ndarray", "NDArray"), "torch": ("Tensor",)}
 
 
 def as_denoiser(
@@ -55,10 +58,18 @@ def as_denoiser(
         ``("linear_symmetric", (a, b))``. Always stored with
         ``verified=False`` and the source "the user's claim".
     backend : {"numpy", "torch"}, optional
-        For callables: which arrays the function takes. When omitted, the first
-        call tries the function on a torch tensor; if that raises or returns
-        something other than a tensor, the function is treated as a numpy
-        function from then on. Give ``backend`` to skip that trial call.
+        For callables: which arrays the function takes. When omitted it is
+        decided without ever handing the function something it was not
+        written for: ``differentiable=True`` means torch; otherwise an
+        annotation of the first parameter as ``numpy.ndarray`` or
+        ``torch.Tensor`` decides; otherwise the first call gives the
+        function the first ``(H, W)`` image as a numpy array, exactly as a
+        numpy function is always called, and keeps that result. If the
+        function raises on it or returns a torch tensor, it is a torch
+        function from then on and receives the tensor as given. A torch
+        function that also works on numpy arrays is thus run on numpy images;
+        give ``backend="torch"`` (or annotate its argument) to keep it on
+        tensors.
 
     Returns
     -------
@@ -135,6 +146,8 @@ class _FunctionDenoiser(Denoiser):
         if backend == "numpy" and self.differentiable:
             raise ValueError("a numpy function cannot be differentiable; set differentiable=False")
         self._fn = fn
+        if backend is None:
+            backend = "torch" if self.differentiable else _annotated_backend(fn)
         self._backend = backend
 
     def _denoise(self, t: torch.Tensor) -> torch.Tensor:
@@ -145,38 +158,35 @@ class _FunctionDenoiser(Denoiser):
         return self._detect(t)
 
     def _detect(self, t: torch.Tensor) -> torch.Tensor:
+        """Decide the backend on the first call, trying numpy first (see ``as_denoiser``)."""
+        first = _images(t)[0]
         try:
-            trial = self._fn(t.clone())
-            torch_failure = None
-        except Exception as error:  # any failure means "not a torch function"
-            trial, torch_failure = None, error
-        if isinstance(trial, torch.Tensor):
-            self._backend = "torch"
-            return self._from_torch(trial, t)
-        if self.differentiable:
-            raise DenoiserError(
-                f"denoiser {self.name!r} was declared differentiable but does not return a torch "
-                "tensor for a torch tensor input"
-                + (f" (it raised {torch_failure!r})" if torch_failure else "")
-            )
+            trial = self._fn(first.copy())
+        except Exception as error:  # any failure means "not a numpy function"
+            numpy_failure: Exception | None = error
+        else:
+            numpy_failure = None
+            if not isinstance(trial, torch.Tensor):
+                self._backend = "numpy"
+                return self._through_numpy(t, first=trial)
         try:
-            result = self._through_numpy(t)
-        except DenoiserError:
-            raise
+            out = self._fn(t.clone())
         except Exception as error:
+            if numpy_failure is None:
+                raise
             raise DenoiserError(
-                f"denoiser {self.name!r} failed on a torch tensor ({torch_failure!r}) and on a "
-                f"numpy image ({error!r}); pass backend='numpy' or backend='torch' to see only "
-                "the relevant failure"
+                f"denoiser {self.name!r} failed on a numpy image of shape {first.shape} "
+                f"({numpy_failure!r}) and on a torch tensor of shape {tuple(t.shape)} ({error!r}); "
+                "pass backend='numpy' or backend='torch' to see only the relevant failure"
             ) from error
-        self._backend = "numpy"
-        return result
+        self._backend = "torch"
+        return self._from_torch(out, t)
 
     def _from_torch(self, out: Any, t: torch.Tensor) -> torch.Tensor:
         if not isinstance(out, torch.Tensor):
             raise DenoiserError(
-                f"denoiser {self.name!r} returned {type(out).__name__} for a torch tensor; "
-                "expected a torch tensor"
+                f"denoiser {self.name!r} returned {type(out).__name__} for a torch tensor of shape "
+                f"{tuple(t.shape)}; expected a torch tensor"
             )
         if not out.is_floating_point():
             raise DenoiserError(
@@ -184,12 +194,13 @@ class _FunctionDenoiser(Denoiser):
             )
         return out.to(dtype=t.dtype, device=t.device)
 
-    def _through_numpy(self, t: torch.Tensor) -> torch.Tensor:
-        height, width = t.shape[-2:]
-        images = t.detach().cpu().numpy().reshape(-1, height, width)
+    def _through_numpy(self, t: torch.Tensor, first: Any = None) -> torch.Tensor:
+        """Call the function on each ``(H, W)`` image of ``t``; ``first``: its result on the first one."""
+        images = _images(t)
+        height, width = images.shape[-2:]
         results = []
-        for image in images:
-            out = np.asarray(self._fn(image.copy()))
+        for index, image in enumerate(images):
+            out = np.asarray(first if index == 0 and first is not None else self._fn(image.copy()))
             if out.shape != (height, width):
                 raise DenoiserError(
                     f"denoiser {self.name!r} returned shape {out.shape} for an input image of "
@@ -203,6 +214,25 @@ class _FunctionDenoiser(Denoiser):
             results.append(out)
         stacked = np.stack(results).reshape(t.shape)
         return torch.from_numpy(stacked).to(dtype=t.dtype, device=t.device)
+
+
+def _images(t: torch.Tensor) -> np.ndarray:
+    """The ``(H, W)`` images of ``t`` as a ``(K, H, W)`` numpy array in ``t``'s dtype."""
+    return t.detach().cpu().numpy().reshape(-1, *t.shape[-2:])
+
+
+def _annotated_backend(fn: Callable) -> str | None:
+    """``"numpy"`` or ``"torch"`` when ``fn``'s first parameter is annotated as one of them."""
+    try:
+        parameters = list(inspect.signature(fn).parameters.values())
+    except (TypeError, ValueError):  # builtins and some extension functions have no signature
+        return None
+    if not parameters or parameters[0].annotation is inspect.Parameter.empty:
+        return None
+    annotation = parameters[0].annotation
+    text = annotation if isinstance(annotation, str) else repr(annotation)
+    found = {name for name, marks in _ANNOTATIONS.items() if any(mark in text for mark in marks)}
+    return found.pop() if len(found) == 1 else None
 
 
 def _module_dtype_device(module: torch.nn.Module, name: str) -> tuple[torch.dtype, torch.device] | None:

@@ -240,14 +240,14 @@ class AveragedCNN(nn.Module):
         noisy: torch.Tensor,
         sigma: torch.Tensor | float,
         theta: torch.Tensor | float,
-        gamma: float = 1.0,
+        gain: float = 1.0,
     ) -> torch.Tensor:
-        """``N(y; sigma, theta) = P y + gamma (I - P) M((I - P) y)`` for ``(B, 1, H, W)`` images ``y``.
+        """``N(y; sigma, theta) = P y + gain (I - P) M((I - P) y)`` for ``(B, 1, H, W)`` images ``y``.
 
         ``M(h) = a h + (1 - a) C(h)`` (class docstring).
 
         ``sigma`` and ``theta`` are scalars or one value per image (shape
-        ``(B,)``). ``gamma = 1`` (the default) gives the nonexpansive ``N``;
+        ``(B,)``). ``gain = 1`` (the default) gives the nonexpansive ``N``;
         a larger gain scales the mean-free part only.
         """
         batch = noisy.shape[0]
@@ -263,19 +263,19 @@ class AveragedCNN(nn.Module):
         skip = torch.sigmoid(settings[-1])[:, :, None, None]
         h = skip * centred + (1 - skip) * self.convs[-1](h)
         h = h - h.mean(dim=(-2, -1), keepdim=True)
-        return mean + gamma * h
+        return mean + gain * h
 
     def forward(
         self,
         noisy: torch.Tensor,
         sigma: torch.Tensor | float,
         theta: torch.Tensor | float,
-        gamma: float = 1.0,
+        gain: float = 1.0,
     ) -> torch.Tensor:
         """``(1 - theta) y + theta N(y)`` for ``(N, C, H, W)`` images, channel by channel.
 
-        ``gamma = 1`` (the default) gives the theta-averaged denoiser; a
-        larger ``gamma`` scales the mean-free part of ``N`` (see
+        ``gain = 1`` (the default) gives the theta-averaged denoiser; a
+        larger ``gain`` scales the mean-free part of ``N`` (see
         :meth:`nonexpansive_part` and :func:`~pnpguard.learned.averaged_cnn`).
         """
         n, c, h, w = noisy.shape
@@ -286,6 +286,6 @@ class AveragedCNN(nn.Module):
             sigma_t = sigma_t.repeat_interleave(c)
         if theta_t.ndim == 1 and c > 1:
             theta_t = theta_t.repeat_interleave(c)
-        part = self.nonexpansive_part(flat, sigma_t, theta_t, gamma)
+        part = self.nonexpansive_part(flat, sigma_t, theta_t, gain)
         weight = theta_t.reshape(-1, 1, 1, 1) if theta_t.ndim == 1 else theta_t
         return ((1 - weight) * flat + weight * part).reshape(n, c, h, w)

@@ -233,8 +233,8 @@ def residual_cnn(sigma: float, *, weights: str | Path | None = None) -> LearnedD
 def averaged_cnn(
     sigma: float,
     *,
-    theta: float = 0.9,
-    gamma: float = 1.0,
+    theta: float | None = None,
+    gain: float = 1.0,
     weights: str | Path | None = None,
 ) -> LearnedDenoiser:
     r"""The shipped averaged CNN denoiser ``D = (1 - theta) I + theta N``.
@@ -250,10 +250,12 @@ def averaged_cnn(
         Noise standard deviation in intensity units, within the trained range.
     theta : float, optional
         Averagedness constant, within the trained range (shipped: [0.5, 0.95]).
-    gamma : float, optional
+        Default: the default theta recorded in the weights file
+        (``train_denoiser(..., default_theta=...)``; shipped: 0.9).
+    gain : float, optional
         Gain on the mean-free network part,
-        ``D = (1 - theta) I + theta (P + gamma (I - P) M (I - P))``. The
-        default 1 keeps the guarantee. ``gamma > 1`` trades it for quality:
+        ``D = (1 - theta) I + theta (P + gain (I - P) M (I - P))``. The
+        default 1 keeps the guarantee. ``gain > 1`` trades it for quality:
         the network part may then expand distances, so the denoiser carries no
         fact at all and a guarded run needs the check to estimate its
         constants (it will usually refuse). Allowed range [1, 2].
@@ -264,14 +266,15 @@ def averaged_cnn(
     -------
     LearnedDenoiser
         Differentiable, with a verified ``Fact(kind="averaged")`` when
-        ``gamma = 1`` and the bound holds; without it (and with a
+        ``gain = 1`` and the bound holds; without it (and with a
         :class:`UserWarning` when the bound fails) otherwise.
 
     Raises
     ------
     ValueError
-        If ``sigma`` or ``theta`` is outside the trained range, or the file
-        holds another architecture.
+        If ``sigma`` or ``theta`` is outside the trained range, ``gain`` is
+        outside [1, 2], ``theta`` is omitted and the file records no default,
+        or the file holds another architecture.
 
     Notes
     -----
@@ -286,8 +289,8 @@ def averaged_cnn(
     :math:`2 \theta`-Lipschitz. These hold in exact arithmetic; the
     float32 evaluation adds rounding of relative size about 1e-7.
 
-    With a gain :math:`\gamma > 1`, ``D`` is only known to be
-    :math:`(1 - \theta + \theta \gamma)`-Lipschitz, a bound above 1, so no
+    With a gain :math:`g > 1`, ``D`` is only known to be
+    :math:`(1 - \theta + \theta g)`-Lipschitz, a bound above 1, so no
     averagedness (not even nonexpansiveness) follows and none is claimed.
 
     References
@@ -300,14 +303,18 @@ def averaged_cnn(
     path = Path(weights) if weights is not None else AVERAGED_WEIGHTS
     model, training = _load(path, ("AveragedCNN",))
     sigma = _check_trained_sigma(sigma, training)
+    if theta is None:
+        if "default_theta" not in training:
+            raise ValueError(f"`theta` is required: {str(path)!r} records no default theta")
+        theta = training["default_theta"]
     if isinstance(theta, bool) or not isinstance(theta, (int, float)):
         raise TypeError(f"`theta` must be a number, got {type(theta).__name__}")
     low, high = model.theta_range
     if not low <= theta <= high:
         raise ValueError(f"`theta` = {theta!r} is outside the range the network was trained for, [{low:g}, {high:g}]")
-    if isinstance(gamma, bool) or not isinstance(gamma, (int, float)) or not 1.0 <= gamma <= 2.0:
-        raise ValueError(f"`gamma` must be a number in [1, 2], got {gamma!r}")
-    if gamma == 1.0:
+    if isinstance(gain, bool) or not isinstance(gain, (int, float)) or not 1.0 <= gain <= 2.0:
+        raise ValueError(f"`gain` must be a number in [1, 2], got {gain!r}")
+    if gain == 1.0:
         return LearnedDenoiser(
             model,
             name=f"averaged CNN (theta={theta:g})",
@@ -317,9 +324,9 @@ def averaged_cnn(
         )
     return LearnedDenoiser(
         model,
-        name=f"widened CNN (theta={theta:g}, gamma={gamma:g})",
+        name=f"widened CNN (theta={theta:g}, gain={gain:g})",
         sigma=sigma,
-        options={"theta": float(theta), "gamma": float(gamma)},
+        options={"theta": float(theta), "gain": float(gain)},
     )
 
 
@@ -361,7 +368,7 @@ def averaged_facts(model: AveragedCNN, theta: float) -> tuple[Fact, ...]:
 
 
 def load_denoiser(
-    path: str | Path, sigma: float, *, theta: float | None = None, gamma: float = 1.0
+    path: str | Path, sigma: float, *, theta: float | None = None, gain: float = 1.0
 ) -> LearnedDenoiser:
     """A denoiser from a weights file written by :func:`train_denoiser`.
 
@@ -372,22 +379,30 @@ def load_denoiser(
     sigma : float
         Noise level, within the range the network was trained on.
     theta : float, optional
-        Required for an averaged network, not allowed for a residual one.
-    gamma : float, optional
+        Averaged network only: averagedness constant within the trained
+        range; default the one the file records (``default_theta`` of
+        :func:`train_denoiser`: the middle of the trained range unless set).
+    gain : float, optional
         Averaged network only: gain on the network part (see :func:`averaged_cnn`).
 
     Returns
     -------
     LearnedDenoiser
         As :func:`residual_cnn` or :func:`averaged_cnn` would build it.
+
+    Raises
+    ------
+    ValueError
+        If ``theta`` or ``gain`` is given for a residual network, or for the
+        reasons listed by :func:`residual_cnn` and :func:`averaged_cnn`.
     """
     model = load_network(path)
     if isinstance(model, AveragedCNN):
-        if theta is None:
-            raise ValueError("`theta` is required for an averaged network")
-        return averaged_cnn(sigma, theta=theta, gamma=gamma, weights=path)
-    if theta is not None or gamma != 1.0:
-        raise ValueError("`theta` and `gamma` apply to averaged networks only; this file holds a residual CNN")
+        return averaged_cnn(sigma, theta=theta, gain=gain, weights=path)
+    if theta is not None or gain != 1.0:
+        raise ValueError(
+            f"`theta` and `gain` apply to averaged networks only; {str(path)!r} holds a {type(model).__name__}"
+        )
     return residual_cnn(sigma, weights=path)
 
 

@@ -328,6 +328,16 @@ def _architecture_of(path: str | Path) -> str:
     return names[stored]
 
 
+def _check_default_theta(default_theta: float | None, theta_range: tuple[float, float]) -> float:
+    """``default_theta``, or the middle of ``theta_range`` when it is None, checked against the range."""
+    low, high = theta_range
+    if default_theta is None:
+        return 0.5 * (low + high)
+    if isinstance(default_theta, bool) or not isinstance(default_theta, (int, float)) or not low <= default_theta <= high:
+        raise ValueError(f"`default_theta` must be a number in `theta_range` [{low:g}, {high:g}], got {default_theta!r}")
+    return float(default_theta)
+
+
 def _residual_predict(model: nn.Module, noisy: torch.Tensor, sigma: torch.Tensor, generator: torch.Generator) -> torch.Tensor:
     return model(noisy, sigma)
 
@@ -352,6 +362,7 @@ def train_denoiser(
     widths: Sequence[int] | None = None,
     blocks: int | None = None,
     theta_range: tuple[float, float] = (0.5, 0.95),
+    default_theta: float | None = None,
     patch_size: int = 40,
     batch_size: int = 32,
     learning_rate: float = 1e-3,
@@ -406,6 +417,11 @@ def train_denoiser(
         residual blocks per level (see :class:`MultiscaleResidualCNN`).
     theta_range : tuple of float, optional
         Averaged network only: range of ``theta`` drawn during training.
+    default_theta : float, optional
+        Averaged network only: the ``theta`` that :func:`load_denoiser` uses
+        when none is given, recorded in the weights file; within
+        ``theta_range``. Default: the middle of ``theta_range`` (the value of
+        the validation printout).
     patch_size, batch_size : int, optional
         Square training patches per step.
     learning_rate : float, optional
@@ -487,10 +503,14 @@ def train_denoiser(
         "blocks": (blocks, ("gradient-step", "multiscale")),
     }
     misplaced = sorted(key for key, (value, owners) in options.items() if value is not None and architecture not in owners)
+    if default_theta is not None and architecture != "averaged":
+        misplaced.append("default_theta")
     if misplaced:
         raise ValueError(f"{', '.join(f'`{key}`' for key in misplaced)} do not apply to the {architecture!r} architecture")
     sizes = {key: value for key, (value, _) in options.items() if value is not None}
     model = _build(architecture, sizes, tuple(theta_range), seed, initial_weights)
+    if architecture == "averaged":
+        default_theta = _check_default_theta(default_theta, model.theta_range)
     sampler = PatchSampler(training, patch_size, (low, high), seed, low_contrast=low_contrast)
     validation = validation_set(validation_pool, min(64, *(min(im.shape) for im in validation_pool)), 64, seed=validation_seed)
     if architecture != "averaged":
@@ -538,5 +558,6 @@ def train_denoiser(
         }
         if architecture == "averaged":
             settings["theta_range"] = list(model.theta_range)
+            settings["default_theta"] = default_theta
         report.path = save_weights(save_to, model, architecture=type(model).__name__, training=settings)
     return report
