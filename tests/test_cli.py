@@ -167,6 +167,17 @@ def test_list_names(capsys):
     assert "wavelet" in out and "nlm" in out
     assert main(["list", "tasks"]) == 0
     assert "ct-limited-120deg" in capsys.readouterr().out
+    assert main(["list", "algorithms"]) == 0  # read from the algorithm and route tables
+    out = capsys.readouterr().out
+    assert "douglas_rachford  dr" in out and "firmly nonexpansive" in out
+
+
+def test_check_gives_guarantees_for_the_chosen_algorithms_only(frame, capsys):
+    assert main(["check", "wavelet", str(frame), "--task", "superres-x2", "--algorithms", "fb", "admm"]) == 0
+    out = capsys.readouterr().out
+    assert "guarantee for forward_backward" in out and "guarantee for admm" in out
+    assert "douglas_rachford" not in out
+    _usage_error(capsys, ["check", "wavelet", str(frame), "--algorithms", "gd"], "`algorithm` must be one of")
 
 
 def test_demo_verb_runs_the_demo_at_the_requested_size_and_seed(capsys):

@@ -256,7 +256,7 @@ def _check(args: argparse.Namespace) -> int:
             raise
         raise UsageError(f"the denoiser {args.denoiser!r} failed: {type(error).__name__}: {error}") from None
     print(report)
-    for algorithm in ("forward_backward", "douglas_rachford", "admm"):
+    for algorithm in args.algorithms:
         print()
         try:
             print(admissible(algorithm, problem.fidelity, report, margin=args.margin))
@@ -386,12 +386,32 @@ def _list(args: argparse.Namespace) -> int:
             noise = f"{100 * task.noise:g} %"
             rows.append((name, task.family, task.model.summary(), noise, task.phantom))
         print(_table(("task", "family", "forward model", "noise (of peak)", "phantom"), rows))
+    elif args.what == "algorithms":
+        from .guarantee import ROUTES
+        from .splitting import ALGORITHMS
+
+        rows = [
+            (record.name, record.short, record.step_name, record.variable,
+             ", ".join(route.name for route in ROUTES if record.name in route.algorithms))
+            for record in ALGORITHMS.values()
+        ]
+        print(_table(("algorithm", "short", "parameter", "monitored", "theorem routes"), rows))
     elif args.what == "denoisers":
         for entry in shipped_denoisers():
             print(f"{entry.name}: {entry.description}; strength = {entry.strength}; {entry.structure}")
     else:
         print("\n".join(phantoms.phantom_names()))
     return 0
+
+
+def _algorithm(text: str) -> str:
+    """An algorithm's API name from its name or short name (argparse type)."""
+    from .splitting import algorithm
+
+    try:
+        return algorithm(text).name
+    except ValueError as error:
+        raise argparse.ArgumentTypeError(str(error)) from None
 
 
 def _table(header: Sequence[str], rows: Sequence[Sequence[str]]) -> str:
@@ -410,6 +430,7 @@ def build_parser() -> argparse.ArgumentParser:
     from .bench import DEFAULT_PSNR_TOL, DEFAULT_SSIM_TOL, suite_names
     from .check._check import MIN_BUDGET
     from .demo import DEFAULT_SEED, DEFAULT_SIZE, MIN_SIZE
+    from .splitting import ALGORITHMS
 
     parser = _Parser(
         prog=PROG,
@@ -453,6 +474,9 @@ def build_parser() -> argparse.ArgumentParser:
     check.add_argument("--seed", type=_seed, default=0, help="seed of the check's search (default: 0)")
     check.add_argument("--margin", type=_fraction, default=0.05,
                        help="relative inflation of estimated constants, in [0, 1) (default: %(default)s)")
+    check.add_argument("--algorithms", nargs="+", type=_algorithm, default=list(ALGORITHMS), metavar="NAME",
+                       help="algorithms to give guarantees for, by name or short name "
+                            f"(default: all: {', '.join(ALGORITHMS)})")
     check.add_argument("--cross-check", action="store_true",
                        help="also search pairs when the structure proves the constants")
     check.set_defaults(run=_check)
@@ -522,7 +546,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     listing = verbs.add_parser("list", help="list suites, tasks, shipped denoisers or phantoms",
                                description="List what the other verbs accept by name.")
-    listing.add_argument("what", choices=("denoisers", "phantoms", "suites", "tasks"))
+    listing.add_argument("what", choices=("algorithms", "denoisers", "phantoms", "suites", "tasks"))
     listing.set_defaults(run=_list)
     for verb in verbs.choices.values():
         # One line naming everything the verb accepts, for the unknown-argument error.
