@@ -15,6 +15,7 @@ import torch
 from pnpguard import bench
 from pnpguard.bench import _baselines as bl
 from pnpguard.check import check_denoiser
+from pnpguard.learned._weights import read_weights
 from pnpguard.operators import Convolution, Decimation, PixelMask, motion_psf
 
 TINY_TASKS = ("deblur-gaussian-1pct", "inpaint-random50")
@@ -91,11 +92,13 @@ def test_limited_angle_scan_spans_its_arc():
 
 
 def test_unknown_names_list_the_valid_ones():
-    with pytest.raises(ValueError, match="superres-x2"):
-        bench.get_task("superres-x3")
-    with pytest.raises(ValueError, match="full, quick"):
+    # One message layout everywhere: what, the value, the valid names sorted, the closest.
+    with pytest.raises(ValueError, match="^unknown task 'superres_x2'; .*; did you mean 'superres-x2'\\?$") as info:
+        bench.get_task("superres_x2")
+    assert f"valid: {', '.join(map(repr, sorted(bench.task_names())))};" in str(info.value)
+    with pytest.raises(ValueError, match="^unknown suite 'fast'; valid: 'full', 'quick'$"):
         bench.get_suite("fast")
-    with pytest.raises(ValueError, match="wavelet"):
+    with pytest.raises(ValueError, match="^unknown shipped denoiser 'wavlet'; valid: .*; did you mean 'wavelet'\\?$"):
         bench.get_denoiser("wavlet")
 
 
@@ -332,6 +335,25 @@ def test_load_results_rejects_other_files(tmp_path):
         bench.load_results(path)
     with pytest.raises(FileNotFoundError):
         bench.load_results(tmp_path / "missing.json")
+
+
+@pytest.mark.parametrize(
+    ("name", "write", "load"),
+    [
+        ("pnpguard-benchmark-results", lambda p, d: p.write_text(json.dumps(d)), bench.load_results),
+        ("pnpguard-tuned-parameters", lambda p, d: p.write_text(json.dumps(d)), bench.load_tuned),
+        ("pnpguard-weights", lambda p, d: torch.save(d, p), read_weights),
+    ],
+)
+def test_our_file_formats_are_checked_alike(tmp_path, name, write, load):
+    path = tmp_path / "file"
+    write(path, {"format": "something-else", "format_version": 1})
+    with pytest.raises(ValueError, match=f"'{path}' is not a {name} file"):
+        load(path)
+    write(path, {"format": name, "format_version": 2})
+    with pytest.raises(ValueError, match=f"'{path}' has format version 2; this version of pnpguard "
+                                         "reads version 1"):
+        load(path)
 
 
 # ------------------------------------------------------------------ report

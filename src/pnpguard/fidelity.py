@@ -138,6 +138,29 @@ class LeastSquares:
         otherwise a proven lower bound (0 when unknown or when ``A`` has a null space)."""
         return self.op.singular_value_lower_bound() ** 2 * self._weight
 
+    # --------------------------------------------------------------- start
+    def start_image(self) -> torch.Tensor:
+        """The default first iterate ``A^T y / ||A||^2``: one gradient step of length ``1/L`` from 0.
+
+        Returns
+        -------
+        torch.Tensor
+            Shaped :attr:`image_shape`, in the data's dtype and on its device.
+            ``||A||`` is the value of ``op.norm_bound()`` (see
+            :attr:`lipschitz`); when that bound is 0 (``A = 0``) the result is
+            ``A^T y`` (zero) instead.
+
+        Notes
+        -----
+        With ``f(x) = ||A x - y||^2 / (2 sigma^2)``, ``grad f(0) = -A^T y / sigma^2``
+        and ``L = ||A||^2 / sigma^2``, so ``0 - grad f(0) / L = A^T y / ||A||^2``
+        whatever ``sigma``. It is the kind of image a denoiser meets in the
+        first iterations, which is why checks sample around it.
+        """
+        back = self.op._adjoint(self._y)
+        bound = self.op.norm_bound().value
+        return back / bound**2 if bound > 0 else back
+
     # --------------------------------------------------------------- public
     def _input(self, x: ArrayLike, name: str = "x") -> tuple[torch.Tensor, object]:
         tensor, kind = to_tensor(x, name)

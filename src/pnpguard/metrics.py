@@ -50,6 +50,21 @@ def _per_image(values: torch.Tensor, ndim: int) -> float | np.ndarray:
     return float(values.reshape(())) if ndim == 2 else values
 
 
+def _psnr(
+    estimate: torch.Tensor, reference: torch.Tensor, data_range: float, dims: tuple[int, ...] | None = None
+) -> torch.Tensor:
+    """PSNR in dB of two tensors of one shape, ``+inf`` where they are equal.
+
+    The mean squared error runs over ``dims`` (every axis when None, one value
+    for the whole tensor), in the tensors' dtype; callers pass float64.
+    ``10 log10(R^2 / 0)`` is defined as ``+inf`` and computed without a
+    division (no error, no warning).
+    """
+    squared = (estimate - reference) ** 2
+    mse = squared.mean() if dims is None else squared.mean(dim=dims)
+    return torch.where(mse > 0, 10.0 * torch.log10(data_range**2 / mse), torch.full_like(mse, math.inf))
+
+
 def psnr(x: ArrayLike, reference: ArrayLike, *, data_range: float) -> float | np.ndarray:
     """Peak signal-to-noise ratio in decibels.
 
@@ -68,7 +83,8 @@ def psnr(x: ArrayLike, reference: ArrayLike, *, data_range: float) -> float | np
     float or numpy.ndarray
         A float for ``(H, W)`` inputs; for ``(N, C, H, W)`` a float64 array of
         length ``N``, the PSNR of each image over all its channels. ``inf``
-        where the estimate equals the reference.
+        (no error, no warning) where the estimate equals the reference: the
+        MSE is then 0 and :math:`R^2 / 0` is taken as :math:`+\\infty`.
 
     Raises
     ------
@@ -96,12 +112,7 @@ def psnr(x: ArrayLike, reference: ArrayLike, *, data_range: float) -> float | np
     20.0
     """
     est, ref, data_range = _check_pair(x, reference, data_range)
-    mse = ((est - ref) ** 2).mean(dim=(-2, -1) if est.ndim == 2 else (1, 2, 3))
-    # 10 log10(R^2 / 0) = +inf exactly, without a division warning.
-    value = torch.where(
-        mse > 0, 10.0 * torch.log10(data_range**2 / mse), torch.full_like(mse, math.inf)
-    )
-    return _per_image(value, est.ndim)
+    return _per_image(_psnr(est, ref, data_range, None if est.ndim == 2 else (1, 2, 3)), est.ndim)
 
 
 def _gaussian_window(dtype: torch.dtype, device: torch.device) -> torch.Tensor:

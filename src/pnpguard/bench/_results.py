@@ -46,6 +46,7 @@ from typing import Any
 import numpy as np
 
 from .._caution import CAUTION  # noqa: F401  (re-exported: shown with tomography results)
+from .._fileformat import check_format
 
 FORMAT = "pnpguard-benchmark-results"
 FORMAT_VERSION = 1
@@ -191,13 +192,7 @@ def validate(document: Any, source: str = "results") -> dict[str, Any]:
     ValueError
         Naming what is wrong.
     """
-    if not isinstance(document, dict) or document.get("format") != FORMAT:
-        raise ValueError(f"{source} is not a {FORMAT} file")
-    if document.get("format_version") != FORMAT_VERSION:
-        raise ValueError(
-            f"{source} has format version {document.get('format_version')!r}; this version of "
-            f"pnpguard reads version {FORMAT_VERSION}"
-        )
+    check_format(document, source, FORMAT, FORMAT_VERSION)
     for key in ("suite", "settings", "environment", "tasks", "results"):
         if key not in document:
             raise ValueError(f"{source} lacks the {key!r} entry")

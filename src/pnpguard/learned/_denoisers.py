@@ -14,10 +14,8 @@ from torch import nn
 
 from ..denoisers._base import Denoiser, check_sigma
 from ..denoisers._facts import ClaimLike, Fact, as_claim
+from ._architectures import BY_CLASS_NAME
 from ._averaged import AveragedCNN, LayerBounds
-from ._gradient_step import GradientStepNetwork
-from ._multiscale import MultiscaleResidualCNN
-from ._residual import ResidualCNN
 from ._weights import read_weights
 
 #: Folder of the weights shipped with the package.
@@ -25,12 +23,6 @@ WEIGHTS_DIR = Path(__file__).resolve().parent / "weights"
 RESIDUAL_WEIGHTS = WEIGHTS_DIR / "residual_cnn.pt"
 AVERAGED_WEIGHTS = WEIGHTS_DIR / "averaged_cnn.pt"
 
-_ARCHITECTURES: dict[str, type[nn.Module]] = {
-    "AveragedCNN": AveragedCNN,
-    "GradientStepNetwork": GradientStepNetwork,
-    "MultiscaleResidualCNN": MultiscaleResidualCNN,
-    "ResidualCNN": ResidualCNN,
-}
 #: Architectures that predict the noise and carry no facts.
 _RESIDUAL_FAMILY = ("MultiscaleResidualCNN", "ResidualCNN")
 
@@ -149,10 +141,10 @@ def load_network(path: str | Path) -> nn.Module:
 def _load(path: str | Path, expected: tuple[str, ...] | None = None) -> tuple[nn.Module, dict]:
     payload = read_weights(path)
     architecture = payload["architecture"]
-    if architecture not in _ARCHITECTURES:
+    if architecture not in BY_CLASS_NAME:
         raise ValueError(
             f"`path` {str(path)!r} holds architecture {architecture!r}; "
-            f"known: {sorted(_ARCHITECTURES)}"
+            f"known: {sorted(BY_CLASS_NAME)}"
         )
     if expected is not None and architecture not in expected:
         raise ValueError(f"`weights` {str(path)!r} holds a {architecture}, not a {' or '.join(expected)}")
@@ -161,7 +153,7 @@ def _load(path: str | Path, expected: tuple[str, ...] | None = None) -> tuple[nn
         # Files written before the option existed were initialised by torch's default.
         config.setdefault("initialisation", "torch-default")
     try:
-        model = _ARCHITECTURES[architecture](**config)
+        model = BY_CLASS_NAME[architecture].network(**config)
         model.load_state_dict(payload["state_dict"], strict=True)
     except (TypeError, RuntimeError) as error:
         raise ValueError(f"`path` {str(path)!r} does not fit {architecture}: {error}") from error
