@@ -141,10 +141,10 @@ def test_bad_input_is_rejected(metric):
     with pytest.raises(ValueError, match=r"`x` has shape \(16, 16\) but `reference` has shape"):
         metric(good, good[:15], data_range=1.0)
     for bad in (0.0, -1.0, math.nan, math.inf):
-        with pytest.raises(ValueError, match="`data_range` must be positive and finite"):
+        with pytest.raises(ValueError, match="`data_range` must be a positive finite number"):
             metric(good, good, data_range=bad)
     for bad in (True, "1", None):
-        with pytest.raises(TypeError, match="`data_range` must be a positive real number"):
+        with pytest.raises(TypeError, match="`data_range` must be a positive finite number"):
             metric(good, good, data_range=bad)
     with pytest.raises(TypeError, match="data_range"):
         metric(good, good)  # the range is required

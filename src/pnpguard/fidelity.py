@@ -9,6 +9,7 @@ from collections.abc import Callable
 import torch
 
 from ._arrays import ArrayLike, check_image_shape, from_tensor, to_tensor
+from ._validation import positive_number
 from .operators import LinearOperator
 
 #: Relative residual at which the conjugate-gradient proximal solve stops.
@@ -94,14 +95,11 @@ class LeastSquares:
     def __init__(self, op: LinearOperator, y: ArrayLike, sigma: float = 1.0):
         if not isinstance(op, LinearOperator):
             raise TypeError(f"`op` must be a pnpguard LinearOperator, got {type(op).__name__}")
-        if isinstance(sigma, bool) or not isinstance(sigma, (int, float)) or not (
-            math.isfinite(sigma) and sigma > 0
-        ):
-            raise ValueError(f"`sigma` must be a positive finite number, got {sigma!r}")
+        sigma = positive_number(sigma, "sigma")
         data, kind = to_tensor(y, "y")
         check_image_shape(data, op.out_shape, "y", "operator's output shape")
         self.op = op
-        self.sigma = float(sigma)
+        self.sigma = sigma
         self.kind = kind
         self._y = data.clone()
         self._weight = 1.0 / self.sigma**2
@@ -179,12 +177,9 @@ class LeastSquares:
 
     def prox(self, x: ArrayLike, step: float) -> ArrayLike:
         """``prox_{step f}(x)``, same kind as ``x``; ``step`` > 0."""
-        if isinstance(step, bool) or not isinstance(step, (int, float)) or not (
-            math.isfinite(step) and step > 0
-        ):
-            raise ValueError(f"`step` must be a positive finite number, got {step!r}")
+        step = positive_number(step, "step")
         tensor, kind = self._input(x)
-        return from_tensor(self._prox(tensor, float(step)), kind)
+        return from_tensor(self._prox(tensor, step), kind)
 
     # ------------------------------------------------------------- internal
     def _value(self, x: torch.Tensor) -> float:

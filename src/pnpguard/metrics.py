@@ -17,6 +17,7 @@ import numpy as np
 import torch
 
 from ._arrays import ArrayLike, to_tensor
+from ._validation import positive_number
 
 # Wang, Bovik, Sheikh & Simoncelli (2004), section III-C: K1 = 0.01, K2 = 0.03 and an
 # 11 x 11 circular-symmetric Gaussian window of standard deviation 1.5.
@@ -34,14 +35,10 @@ def _check_pair(x: ArrayLike, reference: ArrayLike, data_range: Any) -> tuple[to
             f"`x` has shape {tuple(est.shape)} but `reference` has shape {tuple(ref.shape)}; "
             "they must be equal"
         )
-    if isinstance(data_range, bool) or not isinstance(data_range, (int, float, np.integer,
-                                                                   np.floating)):
-        raise TypeError(f"`data_range` must be a positive real number, got {data_range!r}")
-    if not (math.isfinite(data_range) and data_range > 0):
-        raise ValueError(f"`data_range` must be positive and finite, got {data_range!r}")
+    data_range = positive_number(data_range, "data_range")
     est = est.to(torch.float64)
     ref = ref.to(device=est.device, dtype=torch.float64)
-    return est, ref, float(data_range)
+    return est, ref, data_range
 
 
 def _per_image(values: torch.Tensor, ndim: int) -> float | np.ndarray:

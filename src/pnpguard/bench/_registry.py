@@ -12,7 +12,7 @@ from __future__ import annotations
 from collections.abc import Callable
 from dataclasses import dataclass
 
-from .._validation import unknown_message
+from .._validation import image_shape, positive_number, unknown_message
 from ..denoisers import (
     Denoiser,
     GaussianSmoothing,
@@ -58,8 +58,8 @@ class ShippedDenoiser:
     build: Callable[[float, Shape], Denoiser]
 
     def make(self, strength: float, shape: Shape) -> Denoiser:
-        """Build the denoiser at ``strength`` for images of ``shape``."""
-        return self.build(float(strength), tuple(shape))
+        """Build the denoiser at ``strength`` (a positive number) for images of ``shape``."""
+        return self.build(positive_number(strength, "strength"), image_shape(shape, "shape"))
 
 
 #: Strengths tried when tuning: a geometric grid from 1e-4 to 0.1, ratio 10^(1/5).

@@ -12,7 +12,8 @@ from pathlib import Path
 import torch
 from torch import nn
 
-from ..denoisers._base import Denoiser, check_sigma
+from .._validation import number, number_in, positive_number
+from ..denoisers._base import Denoiser
 from ..denoisers._facts import ClaimLike, Fact, as_claim
 from ._architectures import BY_CLASS_NAME
 from ._averaged import AveragedCNN, LayerBounds
@@ -66,7 +67,7 @@ class LearnedDenoiser(Denoiser):
     ) -> None:
         if not isinstance(module, nn.Module):
             raise TypeError(f"`module` must be a torch.nn.Module, got {type(module).__name__}")
-        super().__init__(name=name, sigma=check_sigma(sigma, required=True), differentiable=True, facts=facts)
+        super().__init__(name=name, sigma=positive_number(sigma, "sigma"), differentiable=True, facts=facts)
         self._module = copy.deepcopy(module).eval()
         for parameter in self._module.parameters():
             parameter.requires_grad_(False)
@@ -161,7 +162,7 @@ def _load(path: str | Path, expected: tuple[str, ...] | None = None) -> tuple[nn
 
 
 def _check_trained_sigma(sigma: float, training: dict) -> float:
-    sigma = check_sigma(sigma, required=True)
+    sigma = positive_number(sigma, "sigma")
     low, high = training.get("noise_range", (0.0, math.inf))
     if not low <= sigma <= high * (1 + 1e-9):
         raise ValueError(
@@ -292,13 +293,11 @@ def averaged_cnn(
     path = Path(weights) if weights is not None else AVERAGED_WEIGHTS
     model, training = _load(path, ("AveragedCNN",))
     sigma = _check_trained_sigma(sigma, training)
-    if isinstance(theta, bool) or not isinstance(theta, (int, float)):
-        raise TypeError(f"`theta` must be a number, got {type(theta).__name__}")
+    theta = number(theta, "theta")
     low, high = model.theta_range
     if not low <= theta <= high:
         raise ValueError(f"`theta` = {theta!r} is outside the range the network was trained for, [{low:g}, {high:g}]")
-    if isinstance(gamma, bool) or not isinstance(gamma, (int, float)) or not 1.0 <= gamma <= 2.0:
-        raise ValueError(f"`gamma` must be a number in [1, 2], got {gamma!r}")
+    gamma = number_in(gamma, "gamma", 1.0, 2.0)
     if gamma == 1.0:
         return LearnedDenoiser(
             model,

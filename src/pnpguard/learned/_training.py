@@ -13,7 +13,7 @@ import torch
 from torch import nn
 
 from ..metrics import _psnr
-from .._validation import unknown_message
+from .._validation import choice, positive_int, positive_number
 from ._architectures import BY_CLASS_NAME, BY_NAME
 from ._averaged import AveragedCNN
 from ._data import PatchSampler
@@ -447,14 +447,11 @@ def train_denoiser(
     """
     if architecture is None:
         architecture = "residual" if initial_weights is None else _architecture_of(initial_weights)
-    if architecture not in BY_NAME:
-        raise ValueError(unknown_message("`architecture`", architecture, BY_NAME))
+    choice(architecture, "architecture", BY_NAME)
     if steps is None and seconds is None:
         raise ValueError("give a budget: `steps`, `seconds` or both")
-    if steps is not None and (isinstance(steps, bool) or not isinstance(steps, int) or steps < 1):
-        raise ValueError(f"`steps` must be a positive integer, got {steps!r}")
-    if seconds is not None and not (isinstance(seconds, (int, float)) and seconds > 0):
-        raise ValueError(f"`seconds` must be a positive number, got {seconds!r}")
+    steps = None if steps is None else positive_int(steps, "steps")
+    seconds = None if seconds is None else positive_number(seconds, "seconds")
     low, high = (float(v) for v in noise_range)
     if not 0.0 <= low <= high or not np.isfinite(high):
         raise ValueError(f"`noise_range` must satisfy 0 <= low <= high < inf, got {noise_range!r}")

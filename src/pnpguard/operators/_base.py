@@ -11,11 +11,11 @@ from __future__ import annotations
 import abc
 import math
 from dataclasses import dataclass
-from typing import Any
 
 import torch
 
 from .._arrays import ArrayLike, check_image_shape, from_tensor, to_tensor
+from .._validation import image_shape, is_real
 
 Shape = tuple[int, int]
 
@@ -69,8 +69,8 @@ class LinearOperator(abc.ABC):
     """
 
     def __init__(self, in_shape: Shape, out_shape: Shape):
-        self._in_shape = _as_shape(in_shape, "in_shape")
-        self._out_shape = _as_shape(out_shape, "out_shape")
+        self._in_shape = image_shape(in_shape, "in_shape")
+        self._out_shape = image_shape(out_shape, "out_shape")
         self._norm_cache: float | None = None
         self._bound_cache: NormBound | None = None
 
@@ -213,7 +213,7 @@ class LinearOperator(abc.ABC):
         return _Composition(self, other)
 
     def __mul__(self, scalar: float) -> LinearOperator:
-        if isinstance(scalar, bool) or not isinstance(scalar, (int, float)):
+        if not is_real(scalar):
             return NotImplemented
         return _Scaled(self, float(scalar))
 
@@ -244,16 +244,6 @@ class LinearOperator(abc.ABC):
             f"<{type(self).__name__.lstrip('_')} {_shape_text(self.in_shape)} -> "
             f"{_shape_text(self.out_shape)}{extra}>"
         )
-
-
-def _as_shape(shape: Any, name: str) -> Shape:
-    try:
-        values = tuple(int(s) for s in shape)
-    except TypeError:
-        raise TypeError(f"`{name}` must be a pair of positive integers, got {shape!r}") from None
-    if len(values) != 2 or min(values) < 1 or any(v != s for v, s in zip(values, shape)):
-        raise ValueError(f"`{name}` must be a pair of positive integers, got {shape!r}")
-    return values  # type: ignore[return-value]
 
 
 class _Adjoint(LinearOperator):
