@@ -102,6 +102,21 @@ def test_start_image_is_the_gradient_step_from_zero(op):
     assert_close(start, step, rtol=1e-12, atol=1e-14, what="-grad f(0) / L")
 
 
+@pytest.mark.parametrize("op", OPERATORS, ids=repr)
+def test_fast_path_equals_the_public_path(op):
+    fidelity, y = _fidelity(op)
+    x = torch.from_numpy(RNG.standard_normal(SHAPE))
+    before = x.clone()
+    value = fidelity.apply_value(x)
+    # f(x) = ||A x - y||^2 / (2 sigma^2) with the dense matrix in numpy (definition).
+    residual = dense_matrix(op) @ x.numpy().ravel() - y.ravel()
+    assert value == pytest.approx(0.5 * residual @ residual / 0.3**2, rel=1e-12)
+    assert value == fidelity.value(x)
+    assert torch.equal(fidelity.apply_grad(x), fidelity.grad(x))
+    assert torch.equal(fidelity.apply_prox(x, 0.37), fidelity.prox(x, 0.37))
+    assert torch.equal(x, before)
+
+
 @pytest.mark.parametrize("dtype", [torch.float32, torch.float64])
 def test_start_image_follows_the_data_and_a_zero_operator_gives_zero(dtype):
     y = torch.randn(2, 1, 4, 5, dtype=dtype)

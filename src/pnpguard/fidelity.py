@@ -155,7 +155,7 @@ class LeastSquares:
         whatever ``sigma``. It is the kind of image a denoiser meets in the
         first iterations, which is why checks sample around it.
         """
-        back = self.op._adjoint(self._y)
+        back = self.op.apply_adjoint(self._y)
         bound = self.op.norm_bound().value
         return back / bound**2 if bound > 0 else back
 
@@ -181,22 +181,47 @@ class LeastSquares:
         tensor, kind = self._input(x)
         return from_tensor(self._prox(tensor, step), kind)
 
+    # ------------------------------------------------------------ fast path
+    def apply_value(self, t: torch.Tensor) -> float:
+        """``f(t)`` on a tensor: the fast path used inside iterations.
+
+        Unlike :meth:`value` nothing is checked or converted: ``t`` must be a
+        tensor shaped :attr:`image_shape`, in the data's dtype and on its
+        device. Never written into.
+        """
+        return self._value(t)
+
+    def apply_grad(self, t: torch.Tensor) -> torch.Tensor:
+        """``grad f(t) = A^T (A t - y) / sigma^2`` on a tensor, unchecked (see :meth:`apply_value`).
+
+        Returns a tensor of ``t``'s shape, dtype and device.
+        """
+        return self._grad(t)
+
+    def apply_prox(self, t: torch.Tensor, step: float) -> torch.Tensor:
+        """``prox_{step f}(t)`` on a tensor, unchecked (see :meth:`apply_value`).
+
+        ``step`` must be a positive float (not checked either). Returns a
+        tensor of ``t``'s shape, dtype and device.
+        """
+        return self._prox(t, step)
+
     # ------------------------------------------------------------- internal
     def _value(self, x: torch.Tensor) -> float:
-        residual = self.op._forward(x) - self._y
+        residual = self.op.apply(x) - self._y
         return 0.5 * self._weight * float(torch.sum(residual * residual))
 
     def _grad(self, x: torch.Tensor) -> torch.Tensor:
-        return self._weight * self.op._adjoint(self.op._forward(x) - self._y)
+        return self._weight * self.op.apply_adjoint(self.op.apply(x) - self._y)
 
     def _prox(self, v: torch.Tensor, step: float) -> torch.Tensor:
         shift = step * self._weight
-        rhs = v + shift * self.op._adjoint(self._y)
+        rhs = v + shift * self.op.apply_adjoint(self._y)
         closed = self.op._solve_shifted_normal(rhs, shift)
         if closed is not None:
             return closed
         solution, iterations, relative = conjugate_gradient(
-            lambda d: d + shift * self.op._normal(d),
+            lambda d: d + shift * self.op.apply_normal(d),
             rhs,
             rtol=max(CG_RTOL, 10 * torch.finfo(rhs.dtype).eps),
         )

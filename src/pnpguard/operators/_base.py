@@ -1,9 +1,11 @@
 """Linear operator base class, lazy algebra (composition, scaling, sums) and norms.
 
-Public ``forward``/``adjoint`` validate and convert; subclasses implement the
-private ``_forward``/``_adjoint`` on tensors whose trailing two axes are the
-image and whose leading axes are batch axes. The adjoint of a composite
-operator is derived from its parts, never written by hand.
+Public ``forward``/``adjoint`` validate and convert; the public fast path
+``apply``/``apply_adjoint``/``apply_normal`` takes tensors as they are, for
+use inside iterations. Subclasses implement the private ``_forward``/``_adjoint``
+on tensors whose trailing two axes are the image and whose leading axes are
+batch axes. The adjoint of a composite operator is derived from its parts,
+never written by hand.
 """
 
 from __future__ import annotations
@@ -100,6 +102,43 @@ class LinearOperator(abc.ABC):
 
     def __call__(self, x: ArrayLike) -> ArrayLike:
         return self.forward(x)
+
+    def apply(self, t: torch.Tensor) -> torch.Tensor:
+        """``A t`` on a tensor: the fast path used inside iterations.
+
+        Unlike :meth:`forward` nothing is checked or converted, so the caller
+        guarantees what :meth:`forward` would check.
+
+        Parameters
+        ----------
+        t : torch.Tensor
+            float32 or float64, shaped ``(..., H, W)`` with ``(H, W) =
+            in_shape`` and any leading batch axes, on any device. Never
+            written into.
+
+        Returns
+        -------
+        torch.Tensor
+            ``(..., M, P)`` with ``(M, P) = out_shape``, same leading axes,
+            dtype and device.
+        """
+        return self._forward(t)
+
+    def apply_adjoint(self, t: torch.Tensor) -> torch.Tensor:
+        """``A^T t`` on a tensor ``(..., M, P)`` (``out_shape``): the fast path of :meth:`adjoint`.
+
+        Nothing is checked or converted (see :meth:`apply`); returns
+        ``(..., H, W)`` in ``t``'s dtype and on its device.
+        """
+        return self._adjoint(t)
+
+    def apply_normal(self, t: torch.Tensor) -> torch.Tensor:
+        """``A^T A t`` on a tensor ``(..., H, W)`` (``in_shape``), unchecked (see :meth:`apply`).
+
+        Equal to ``apply_adjoint(apply(t))``; operators with a cheaper form
+        (masks: ``m^2 t``) use it.
+        """
+        return self._normal(t)
 
     @abc.abstractmethod
     def _forward(self, x: torch.Tensor) -> torch.Tensor:
