@@ -3,8 +3,11 @@
 from __future__ import annotations
 
 import copy
+import importlib.metadata
 import json
 import math
+import tomllib
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -13,6 +16,8 @@ import skimage.restoration
 import torch
 
 from pnpguard import bench
+from pnpguard._version import SOURCE_VERSION
+from pnpguard.bench import _results as bench_results
 from pnpguard.bench import _baselines as bl
 from pnpguard.check import check_denoiser
 from pnpguard.learned._weights import read_weights
@@ -224,6 +229,7 @@ def test_tiny_suite_runs_and_writes_valid_json(tiny):
     assert document["suite"]["shape"] == [32, 32]
     assert document["settings"]["check_budget"] == 20
     assert document["environment"]["torch"] == torch.__version__
+    assert document["environment"]["pnpguard"] == importlib.metadata.version("pnpguard")
     for record in document["results"]:
         if record["status"] == "ok":
             assert math.isfinite(record["psnr"]) and -1.0 <= record["ssim"] <= 1.0
@@ -335,6 +341,18 @@ def test_load_results_rejects_other_files(tmp_path):
         bench.load_results(path)
     with pytest.raises(FileNotFoundError):
         bench.load_results(tmp_path / "missing.json")
+
+
+def test_the_version_comes_from_the_distribution_or_the_source_constant(monkeypatch):
+    # The source constant is the version pyproject.toml declares (read with tomllib).
+    pyproject = tomllib.loads((Path(__file__).parents[1] / "pyproject.toml").read_text())
+    assert SOURCE_VERSION == pyproject["project"]["version"]
+
+    def not_installed(name):
+        raise importlib.metadata.PackageNotFoundError(name)
+
+    monkeypatch.setattr(importlib.metadata, "version", not_installed)
+    assert bench_results.environment(1)["pnpguard"] == SOURCE_VERSION
 
 
 @pytest.mark.parametrize(

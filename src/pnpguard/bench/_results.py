@@ -45,8 +45,8 @@ from typing import Any
 
 import numpy as np
 
-from .._caution import CAUTION  # noqa: F401  (re-exported: shown with tomography results)
 from .._fileformat import check_format
+from .._version import package_version
 
 FORMAT = "pnpguard-benchmark-results"
 FORMAT_VERSION = 1
@@ -84,11 +84,9 @@ def environment(threads: int) -> dict[str, Any]:
     import skimage
     import torch
 
-    from .. import __version__
-
     status = _git("status", "--porcelain", "--untracked-files=no")
     return {
-        "pnpguard": __version__,
+        "pnpguard": package_version(),
         "git_commit": _git("rev-parse", "HEAD"),
         "git_dirty": None if status is None else bool(status),
         "python": platform.python_version(),

@@ -11,6 +11,7 @@ from typing import Any
 import numpy as np
 import torch
 
+from .._caution import CAUTION
 from .._validation import positive_int, unknown_message
 from ..metrics import psnr, ssim
 from ._methods import (
@@ -23,7 +24,6 @@ from ._methods import (
     run_pnp,
 )
 from ._results import (
-    CAUTION,
     FORMAT,
     FORMAT_VERSION,
     BenchmarkRun,
