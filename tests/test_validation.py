@@ -54,36 +54,31 @@ NOT_NUMBERS = ["a", True, np.bool_(False), [1.0], 1j]
 OUT_OF_RANGE = [0.0, -1.0, math.nan, math.inf, -math.inf]
 
 
-@pytest.mark.parametrize("entry", sorted(POSITIVE_NUMBERS))
-@pytest.mark.parametrize("value", NOT_NUMBERS, ids=repr)
-def test_a_value_that_is_not_a_number_is_a_type_error(entry, value):
-    name, call = POSITIVE_NUMBERS[entry]
-    with pytest.raises(TypeError, match=f"^`{name}` must be a positive finite number, got "):
-        call(value)
+# (value, the exception every entry point raises for it)
+NUMBER_MISTAKES = [(x, TypeError) for x in NOT_NUMBERS] + [(x, ValueError) for x in OUT_OF_RANGE]
+INTEGER_MISTAKES = [(x, TypeError) for x in ("3", True, 2.0)] + [(x, ValueError) for x in (0, -2, np.int64(-1))]
+TABLES = [(POSITIVE_NUMBERS, "a positive finite number", NUMBER_MISTAKES),
+          (POSITIVE_INTEGERS, "a positive integer", INTEGER_MISTAKES)]
 
 
-@pytest.mark.parametrize("entry", sorted(POSITIVE_NUMBERS))
-@pytest.mark.parametrize("value", OUT_OF_RANGE, ids=repr)
-def test_a_number_out_of_range_is_a_value_error(entry, value):
-    name, call = POSITIVE_NUMBERS[entry]
-    with pytest.raises(ValueError, match=f"^`{name}` must be a positive finite number, got {re.escape(repr(value))}$"):
-        call(value)
-
-
-@pytest.mark.parametrize("entry", sorted(POSITIVE_INTEGERS))
-@pytest.mark.parametrize("value", ["3", True, 2.0], ids=repr)
-def test_a_value_that_is_not_an_integer_is_a_type_error(entry, value):
-    name, call = POSITIVE_INTEGERS[entry]
-    with pytest.raises(TypeError, match=f"^`{name}` must be a positive integer, got "):
-        call(value)
-
-
-@pytest.mark.parametrize("entry", sorted(POSITIVE_INTEGERS))
-@pytest.mark.parametrize("value", [0, -2, np.int64(-1)], ids=repr)
-def test_an_integer_out_of_range_is_a_value_error(entry, value):
-    name, call = POSITIVE_INTEGERS[entry]
-    with pytest.raises(ValueError, match=f"^`{name}` must be a positive integer, got {re.escape(repr(value))}$"):
-        call(value)
+@pytest.mark.parametrize(
+    ("table", "expected", "value", "error"),
+    [(table, expected, value, error) for table, expected, mistakes in TABLES for value, error in mistakes],
+    ids=lambda item: repr(item) if not isinstance(item, dict) else "",
+)
+def test_the_same_mistake_raises_the_same_type_at_every_entry_point(table, expected, value, error):
+    # A value of the wrong kind: TypeError (the message shows its type); a value of the
+    # right kind out of range: ValueError (the message shows the value).
+    received = re.escape(repr(value)) + (r" \(" if error is TypeError else "$")
+    for entry, (name, call) in table.items():
+        try:
+            call(value)
+        except Exception as raised:  # noqa: BLE001 - the type is what is tested
+            message = str(raised)
+            assert type(raised) is error, (entry, type(raised).__name__, message)
+            assert re.match(f"`{name}` must be {expected}, got {received}", message), (entry, message)
+        else:
+            pytest.fail(f"{entry} accepted {value!r}")
 
 
 def test_numbers_of_every_real_kind_are_accepted_and_returned_as_python_numbers():
