@@ -28,7 +28,7 @@ import time
 import numpy as np
 import torch
 
-from pnpguard import TotalVariation, WaveletShrinkage
+from pnpguard import TotalVariation, WaveletShrinkage, psnr
 from pnpguard.learned import averaged_cnn, residual_cnn
 from pnpguard.learned._evaluate import EVALUATION_LEVELS, held_out_table
 
@@ -55,7 +55,7 @@ def seconds_per_call(denoiser, size: int, repeats: int = 7) -> float:
 def classical_scores(make, factors) -> dict[tuple[str, str], dict[float, float]]:
     """PSNR of ``make(sigma, factor)`` for every held-out picture, level and grid factor."""
     from pnpguard.learned._data import HELD_OUT_IMAGES, bundled_image
-    from pnpguard.learned._evaluate import noisy_copy, psnr_db
+    from pnpguard.learned._evaluate import noisy_copy
 
     scores = {}
     for name in HELD_OUT_IMAGES:
@@ -63,7 +63,7 @@ def classical_scores(make, factors) -> dict[tuple[str, str], dict[float, float]]
         for level in EVALUATION_LEVELS:
             sigma = level / 255
             noisy = noisy_copy(clean, sigma).astype(np.float64)
-            scores[name, str(level)] = {factor: psnr_db(make(sigma, factor)(noisy), clean) for factor in factors}
+            scores[name, str(level)] = {factor: psnr(make(sigma, factor)(noisy), clean, data_range=1.0) for factor in factors}
     return scores
 
 

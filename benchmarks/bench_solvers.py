@@ -48,7 +48,7 @@ def main() -> None:
     denoiser = pg.GaussianSmoothing(0.6, shape=(SIZE, SIZE))
     report = pg.check_denoiser(denoiser, fidelity.y)
     guarantee = pg.admissible("forward_backward", fidelity, report)
-    x0 = op._adjoint(fidelity.y)
+    x0 = op.apply_adjoint(fidelity.y)
     bare_times, library_times = [], []
     for _ in range(5):  # interleaved, so both see the same machine load
         bare_times.append(_bare_loop(fidelity, denoiser, guarantee.step, x0, ITERATIONS))

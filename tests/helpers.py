@@ -10,7 +10,7 @@ def dense_matrix(op) -> np.ndarray:
     """The matrix of a pnpguard operator, column by column (float64)."""
     h, w = op.in_shape
     basis = torch.eye(h * w, dtype=torch.float64).reshape(h * w, h, w)
-    columns = op._forward(basis).reshape(h * w, -1)
+    columns = op.apply(basis).reshape(h * w, -1)
     return columns.T.numpy()
 
 

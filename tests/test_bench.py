@@ -3,8 +3,11 @@
 from __future__ import annotations
 
 import copy
+import importlib.metadata
 import json
 import math
+import tomllib
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -13,8 +16,11 @@ import skimage.restoration
 import torch
 
 from pnpguard import bench
+from pnpguard._version import SOURCE_VERSION
+from pnpguard.bench import _results as bench_results
 from pnpguard.bench import _baselines as bl
 from pnpguard.check import check_denoiser
+from pnpguard.learned._weights import read_weights
 from pnpguard.operators import Convolution, Decimation, PixelMask, motion_psf
 
 TINY_TASKS = ("deblur-gaussian-1pct", "inpaint-random50")
@@ -91,11 +97,13 @@ def test_limited_angle_scan_spans_its_arc():
 
 
 def test_unknown_names_list_the_valid_ones():
-    with pytest.raises(ValueError, match="superres-x2"):
-        bench.get_task("superres-x3")
-    with pytest.raises(ValueError, match="full, quick"):
+    # One message layout everywhere: what, the value, the valid names sorted, the closest.
+    with pytest.raises(ValueError, match="^unknown task 'superres_x2'; .*; did you mean 'superres-x2'\\?$") as info:
+        bench.get_task("superres_x2")
+    assert f"valid: {', '.join(map(repr, sorted(bench.task_names())))};" in str(info.value)
+    with pytest.raises(ValueError, match="^unknown suite 'fast'; valid: 'full', 'quick'$"):
         bench.get_suite("fast")
-    with pytest.raises(ValueError, match="wavelet"):
+    with pytest.raises(ValueError, match="^unknown shipped denoiser 'wavlet'; valid: .*; did you mean 'wavelet'\\?$"):
         bench.get_denoiser("wavlet")
 
 
@@ -221,6 +229,7 @@ def test_tiny_suite_runs_and_writes_valid_json(tiny):
     assert document["suite"]["shape"] == [32, 32]
     assert document["settings"]["check_budget"] == 20
     assert document["environment"]["torch"] == torch.__version__
+    assert document["environment"]["pnpguard"] == importlib.metadata.version("pnpguard")
     for record in document["results"]:
         if record["status"] == "ok":
             assert math.isfinite(record["psnr"]) and -1.0 <= record["ssim"] <= 1.0
@@ -332,6 +341,37 @@ def test_load_results_rejects_other_files(tmp_path):
         bench.load_results(path)
     with pytest.raises(FileNotFoundError):
         bench.load_results(tmp_path / "missing.json")
+
+
+def test_the_version_comes_from_the_distribution_or_the_source_constant(monkeypatch):
+    # The source constant is the version pyproject.toml declares (read with tomllib).
+    pyproject = tomllib.loads((Path(__file__).parents[1] / "pyproject.toml").read_text())
+    assert SOURCE_VERSION == pyproject["project"]["version"]
+
+    def not_installed(name):
+        raise importlib.metadata.PackageNotFoundError(name)
+
+    monkeypatch.setattr(importlib.metadata, "version", not_installed)
+    assert bench_results.environment(1)["pnpguard"] == SOURCE_VERSION
+
+
+@pytest.mark.parametrize(
+    ("name", "write", "load"),
+    [
+        ("pnpguard-benchmark-results", lambda p, d: p.write_text(json.dumps(d)), bench.load_results),
+        ("pnpguard-tuned-parameters", lambda p, d: p.write_text(json.dumps(d)), bench.load_tuned),
+        ("pnpguard-weights", lambda p, d: torch.save(d, p), read_weights),
+    ],
+)
+def test_our_file_formats_are_checked_alike(tmp_path, name, write, load):
+    path = tmp_path / "file"
+    write(path, {"format": "something-else", "format_version": 1})
+    with pytest.raises(ValueError, match=f"'{path}' is not a {name} file"):
+        load(path)
+    write(path, {"format": name, "format_version": 2})
+    with pytest.raises(ValueError, match=f"'{path}' has format version 2; this version of pnpguard "
+                                         "reads version 1"):
+        load(path)
 
 
 # ------------------------------------------------------------------ report

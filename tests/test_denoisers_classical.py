@@ -145,7 +145,7 @@ def test_wavelet_argument_errors_and_torch_round_trip():
         WaveletShrinkage(sigma=0.1, wavelet="bior2.2")
     with pytest.raises(ValueError, match="discrete wavelet"):
         WaveletShrinkage(sigma=0.1, wavelet="mexh")
-    with pytest.raises(ValueError, match="sigma"):
+    with pytest.raises(TypeError, match="`sigma` must be a positive finite number, got None"):
         WaveletShrinkage(sigma=None)
     den = WaveletShrinkage(sigma=0.1)
     assert den.levels_for((512, 512)) == pywt.dwt_max_level(512, 8)

@@ -87,6 +87,45 @@ def test_prox_of_the_gradient_step_fixed_point_is_the_least_squares_solution():
     assert_close(fidelity.grad(solution), np.zeros(SHAPE), rtol=0, atol=1e-8)
 
 
+@pytest.mark.parametrize("op", OPERATORS, ids=repr)
+def test_start_image_is_the_gradient_step_from_zero(op):
+    fidelity, y = _fidelity(op)
+    start = fidelity.start_image()
+    # Reference: A^T y / ||A||^2 with the dense matrix and numpy.linalg.norm(., 2) (largest
+    # singular value); the library divides by its norm bound, within 1e-3 of it (as above).
+    matrix = dense_matrix(op)
+    expected = (matrix.T @ y.ravel()).reshape(SHAPE) / np.linalg.norm(matrix, 2) ** 2
+    assert isinstance(start, torch.Tensor) and start.dtype == torch.float64
+    assert_close(start, expected, rtol=2e-3, atol=1e-12, what="A^T y / ||A||^2")
+    # Exactly the bound the Lipschitz constant uses: start = -grad f(0) / L.
+    step = -fidelity.grad(np.zeros(SHAPE)) / fidelity.lipschitz
+    assert_close(start, step, rtol=1e-12, atol=1e-14, what="-grad f(0) / L")
+
+
+@pytest.mark.parametrize("op", OPERATORS, ids=repr)
+def test_fast_path_equals_the_public_path(op):
+    fidelity, y = _fidelity(op)
+    x = torch.from_numpy(RNG.standard_normal(SHAPE))
+    before = x.clone()
+    value = fidelity.apply_value(x)
+    # f(x) = ||A x - y||^2 / (2 sigma^2) with the dense matrix in numpy (definition).
+    residual = dense_matrix(op) @ x.numpy().ravel() - y.ravel()
+    assert value == pytest.approx(0.5 * residual @ residual / 0.3**2, rel=1e-12)
+    assert value == fidelity.value(x)
+    assert torch.equal(fidelity.apply_grad(x), fidelity.grad(x))
+    assert torch.equal(fidelity.apply_prox(x, 0.37), fidelity.prox(x, 0.37))
+    assert torch.equal(x, before)
+
+
+@pytest.mark.parametrize("dtype", [torch.float32, torch.float64])
+def test_start_image_follows_the_data_and_a_zero_operator_gives_zero(dtype):
+    y = torch.randn(2, 1, 4, 5, dtype=dtype)
+    start = pg.LeastSquares(pg.Decimation(2, SHAPE), y, sigma=0.1).start_image()
+    assert start.dtype == dtype and start.shape == (2, 1, *SHAPE)
+    zero = pg.LeastSquares(0.0 * pg.Decimation(2, SHAPE), y).start_image()
+    assert zero.dtype == dtype and not zero.any() and bool(torch.isfinite(zero).all())
+
+
 @pytest.mark.parametrize("dtype", [torch.float32, torch.float64])
 def test_kinds_are_preserved_and_batches_work(dtype):
     op = pg.Decimation(2, SHAPE)

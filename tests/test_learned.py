@@ -10,6 +10,7 @@ import pytest
 import torch
 import torch.nn.functional as F
 
+import pnpguard as pg
 from pnpguard.learned import (
     AveragedCNN,
     MultiscaleResidualCNN,
@@ -26,9 +27,11 @@ from pnpguard.learned import (
 from pnpguard.learned._averaged import dct_filters, reflected_shrink
 from pnpguard.learned._data import PatchSampler, bundled_image
 from pnpguard.learned._denoisers import AVERAGED_WEIGHTS, RESIDUAL_WEIGHTS, WEIGHTS_DIR
-from pnpguard.learned._evaluate import noisy_copy, psnr_db
+from pnpguard.learned._evaluate import held_out_table, noisy_copy
 from pnpguard.learned._lipschitz import circular_conv, circular_conv_adjoint
-from pnpguard.learned._weights import read_weights
+from pnpguard.learned._architectures import BY_CLASS_NAME, BY_NAME
+from pnpguard.learned._training import _architecture_of
+from pnpguard.learned._weights import read_weights, save_weights
 
 RECORD = json.loads((WEIGHTS_DIR / "record.json").read_text())
 
@@ -75,9 +78,29 @@ def test_shipped_weights_reproduce_recorded_psnr(factory, key, options):
     sigma = 25 / 255
     noisy = noisy_copy(clean, sigma, seed=0)
     denoised = factory(sigma, **options)(noisy)
-    value = psnr_db(denoised, clean)
+    value = pg.psnr(denoised, clean, data_range=1.0)
     assert abs(value - table["camera"]["25"]) <= 0.3, (value, table["camera"]["25"])
-    assert value > psnr_db(noisy, clean) + 4.0  # it denoises
+    assert value > pg.psnr(noisy, clean, data_range=1.0) + 4.0  # it denoises
+
+
+def test_one_architecture_table_serves_training_and_loading(tmp_path):
+    assert sorted(BY_NAME) == ["averaged", "gradient-step", "multiscale", "residual"]
+    assert sorted(BY_CLASS_NAME) == sorted(entry.network.__name__ for entry in BY_NAME.values())
+    for name, entry in BY_NAME.items():
+        path = save_weights(tmp_path / f"{name}.pt", entry.network(), architecture=entry.class_name, training={})
+        assert type(load_network(path)) is entry.network  # loading reads the table by class name
+        assert _architecture_of(path) == name  # training maps the file back to the user name
+
+
+def test_held_out_table_gives_inf_for_an_exact_denoiser():
+    # An oracle that returns the clean picture: MSE 0, PSNR +inf by definition (no ZeroDivisionError).
+    table = held_out_table(lambda noisy, sigma: bundled_image("moon"), names=("moon",), levels=(25,))
+    assert table == {"moon": {"25": float("inf")}}
+    # The noisy picture itself: 10 log10(1 / MSE) with the MSE computed here in numpy (definition).
+    clean = bundled_image("moon")
+    table = held_out_table(lambda noisy, sigma: noisy, names=("moon",), levels=(25,))
+    mse = np.mean((noisy_copy(clean, 25 / 255).astype(np.float64) - clean) ** 2)
+    assert abs(table["moon"]["25"] - 10 * np.log10(1.0 / mse)) < 1e-9
 
 
 def test_held_out_images_never_in_training_record():

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import warnings
 
 import numpy as np
 import pytest
@@ -10,6 +11,7 @@ import torch
 from skimage.metrics import peak_signal_noise_ratio, structural_similarity
 
 import pnpguard as pg
+from pnpguard.metrics import _psnr
 from pnpguard.phantoms import natural_image
 
 # skimage.metrics.structural_similarity documents these settings as reproducing
@@ -139,10 +141,10 @@ def test_bad_input_is_rejected(metric):
     with pytest.raises(ValueError, match=r"`x` has shape \(16, 16\) but `reference` has shape"):
         metric(good, good[:15], data_range=1.0)
     for bad in (0.0, -1.0, math.nan, math.inf):
-        with pytest.raises(ValueError, match="`data_range` must be positive and finite"):
+        with pytest.raises(ValueError, match="`data_range` must be a positive finite number"):
             metric(good, good, data_range=bad)
     for bad in (True, "1", None):
-        with pytest.raises(TypeError, match="`data_range` must be a positive real number"):
+        with pytest.raises(TypeError, match="`data_range` must be a positive finite number"):
             metric(good, good, data_range=bad)
     with pytest.raises(TypeError, match="data_range"):
         metric(good, good)  # the range is required
@@ -154,3 +156,32 @@ def test_bad_input_is_rejected(metric):
         metric(good, nan, data_range=1.0)
     with pytest.raises(ValueError, match="`x` must be shaped"):
         metric(good[None], good[None], data_range=1.0)
+
+
+def test_identical_images_have_infinite_psnr_without_warning():
+    reference = natural_image("coins", (24, 20))
+    batch = np.stack([reference, reference + 0.1])[:, None]
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # no division warning either
+        assert pg.psnr(reference, reference, data_range=1.0) == math.inf
+        values = pg.psnr(torch.from_numpy(batch), torch.from_numpy(np.stack([reference] * 2)[:, None]),
+                         data_range=1.0)
+        exact = _psnr(torch.from_numpy(batch), torch.from_numpy(batch), 1.0)
+    # Image 0 equals its reference; image 1 differs by 0.1 everywhere: 20 dB (definition).
+    assert values[0] == math.inf and abs(values[1] - 20.0) < 1e-10
+    assert float(exact) == math.inf
+
+
+@pytest.mark.parametrize("dims", [None, (1, 2, 3)])
+def test_psnr_kernel_against_scikit_image(dims):
+    truth = np.stack([natural_image(name, (16, 18)) for name in ("camera", "moon", "cell")])[:, None]
+    noise = np.random.default_rng(3).standard_normal(truth.shape)
+    estimate = truth + 0.05 * noise * np.arange(1, 4)[:, None, None, None]
+    got = _psnr(torch.from_numpy(estimate), torch.from_numpy(truth), 2.0, dims).numpy()
+    # skimage.metrics.peak_signal_noise_ratio(image_true, image_test, data_range=R): the MSE
+    # over every entry it is given (the whole batch, or one image).
+    if dims is None:
+        expected = peak_signal_noise_ratio(truth, estimate, data_range=2.0)
+    else:
+        expected = [peak_signal_noise_ratio(t, e, data_range=2.0) for t, e in zip(truth, estimate)]
+    np.testing.assert_allclose(got, expected, rtol=0, atol=1e-10)

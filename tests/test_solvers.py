@@ -112,7 +112,7 @@ def test_admm_iterates_are_douglas_rachford_iterates_under_the_change_of_variabl
     z, u = x0.clone(), torch.zeros_like(x0)
     w_sequence = []
     for _ in range(16):
-        x = fidelity._prox(z - u, gamma)
+        x = fidelity.apply_prox(z - u, gamma)
         w_sequence.append(x + u)
         z = denoiser.apply(x + u)
         u = u + x - z
@@ -152,7 +152,7 @@ def test_expansive_denoiser_refused_when_guarded_and_stopped_when_not():
     witness = next(flag for flag in result.flags if flag.kind == "residual_increase").witness
     first, second = witness
     # The witness pair is expanded by T = D (I - eta grad f): reproduce it.
-    t = lambda v: expansive.apply(v - result.step * fidelity._grad(v))  # noqa: E731
+    t = lambda v: expansive.apply(v - result.step * fidelity.apply_grad(v))  # noqa: E731
     assert float(torch.linalg.vector_norm(t(first) - t(second))) > float(torch.linalg.vector_norm(first - second))
 
 
@@ -394,7 +394,7 @@ def test_an_optimistic_estimate_is_caught_by_the_monitor_with_a_witness():
     first, second = broken[0].witness
     # Reproduce: the pair (v, T v) of consecutive iterates violates the certified averagedness
     # of T = D (I - eta grad f) (THEORY.md section 1, pairwise statistic).
-    t = lambda v: denoiser.apply(v - result.step * fidelity._grad(v))  # noqa: E731
+    t = lambda v: denoiser.apply(v - result.step * fidelity.apply_grad(v))  # noqa: E731
     a = first - second
     r = a - (t(first) - t(second))
     statistic = float(torch.sum(r * r) / (2 * torch.sum(a * r)))

@@ -6,6 +6,7 @@ and monitor every run's fixed-point residual.
 """
 
 from . import phantoms
+from ._version import package_version
 from .check import *  # noqa: F403
 from .check import __all__ as _check_all
 from .denoisers import *  # noqa: F403
@@ -21,7 +22,7 @@ from .operators import __all__ as _operators_all
 from .solvers import *  # noqa: F403
 from .solvers import __all__ as _solvers_all
 
-__version__ = "0.1.0"
+__version__ = package_version()
 
 __all__ = [
     "LeastSquares",

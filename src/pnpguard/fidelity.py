@@ -9,6 +9,7 @@ from collections.abc import Callable
 import torch
 
 from ._arrays import ArrayLike, check_image_shape, from_tensor, to_tensor
+from ._validation import positive_number
 from .operators import LinearOperator
 
 #: Relative residual at which the conjugate-gradient proximal solve stops.
@@ -94,14 +95,11 @@ class LeastSquares:
     def __init__(self, op: LinearOperator, y: ArrayLike, sigma: float = 1.0):
         if not isinstance(op, LinearOperator):
             raise TypeError(f"`op` must be a pnpguard LinearOperator, got {type(op).__name__}")
-        if isinstance(sigma, bool) or not isinstance(sigma, (int, float)) or not (
-            math.isfinite(sigma) and sigma > 0
-        ):
-            raise ValueError(f"`sigma` must be a positive finite number, got {sigma!r}")
+        sigma = positive_number(sigma, "sigma")
         data, kind = to_tensor(y, "y")
         check_image_shape(data, op.out_shape, "y", "operator's output shape")
         self.op = op
-        self.sigma = float(sigma)
+        self.sigma = sigma
         self.kind = kind
         self._y = data.clone()
         self._weight = 1.0 / self.sigma**2
@@ -138,6 +136,29 @@ class LeastSquares:
         otherwise a proven lower bound (0 when unknown or when ``A`` has a null space)."""
         return self.op.singular_value_lower_bound() ** 2 * self._weight
 
+    # --------------------------------------------------------------- start
+    def start_image(self) -> torch.Tensor:
+        """The default first iterate ``A^T y / ||A||^2``: one gradient step of length ``1/L`` from 0.
+
+        Returns
+        -------
+        torch.Tensor
+            Shaped :attr:`image_shape`, in the data's dtype and on its device.
+            ``||A||`` is the value of ``op.norm_bound()`` (see
+            :attr:`lipschitz`); when that bound is 0 (``A = 0``) the result is
+            ``A^T y`` (zero) instead.
+
+        Notes
+        -----
+        With ``f(x) = ||A x - y||^2 / (2 sigma^2)``, ``grad f(0) = -A^T y / sigma^2``
+        and ``L = ||A||^2 / sigma^2``, so ``0 - grad f(0) / L = A^T y / ||A||^2``
+        whatever ``sigma``. It is the kind of image a denoiser meets in the
+        first iterations, which is why checks sample around it.
+        """
+        back = self.op.apply_adjoint(self._y)
+        bound = self.op.norm_bound().value
+        return back / bound**2 if bound > 0 else back
+
     # --------------------------------------------------------------- public
     def _input(self, x: ArrayLike, name: str = "x") -> tuple[torch.Tensor, object]:
         tensor, kind = to_tensor(x, name)
@@ -156,29 +177,51 @@ class LeastSquares:
 
     def prox(self, x: ArrayLike, step: float) -> ArrayLike:
         """``prox_{step f}(x)``, same kind as ``x``; ``step`` > 0."""
-        if isinstance(step, bool) or not isinstance(step, (int, float)) or not (
-            math.isfinite(step) and step > 0
-        ):
-            raise ValueError(f"`step` must be a positive finite number, got {step!r}")
+        step = positive_number(step, "step")
         tensor, kind = self._input(x)
-        return from_tensor(self._prox(tensor, float(step)), kind)
+        return from_tensor(self._prox(tensor, step), kind)
+
+    # ------------------------------------------------------------ fast path
+    def apply_value(self, t: torch.Tensor) -> float:
+        """``f(t)`` on a tensor: the fast path used inside iterations.
+
+        Unlike :meth:`value` nothing is checked or converted: ``t`` must be a
+        tensor shaped :attr:`image_shape`, in the data's dtype and on its
+        device. Never written into.
+        """
+        return self._value(t)
+
+    def apply_grad(self, t: torch.Tensor) -> torch.Tensor:
+        """``grad f(t) = A^T (A t - y) / sigma^2`` on a tensor, unchecked (see :meth:`apply_value`).
+
+        Returns a tensor of ``t``'s shape, dtype and device.
+        """
+        return self._grad(t)
+
+    def apply_prox(self, t: torch.Tensor, step: float) -> torch.Tensor:
+        """``prox_{step f}(t)`` on a tensor, unchecked (see :meth:`apply_value`).
+
+        ``step`` must be a positive float (not checked either). Returns a
+        tensor of ``t``'s shape, dtype and device.
+        """
+        return self._prox(t, step)
 
     # ------------------------------------------------------------- internal
     def _value(self, x: torch.Tensor) -> float:
-        residual = self.op._forward(x) - self._y
+        residual = self.op.apply(x) - self._y
         return 0.5 * self._weight * float(torch.sum(residual * residual))
 
     def _grad(self, x: torch.Tensor) -> torch.Tensor:
-        return self._weight * self.op._adjoint(self.op._forward(x) - self._y)
+        return self._weight * self.op.apply_adjoint(self.op.apply(x) - self._y)
 
     def _prox(self, v: torch.Tensor, step: float) -> torch.Tensor:
         shift = step * self._weight
-        rhs = v + shift * self.op._adjoint(self._y)
+        rhs = v + shift * self.op.apply_adjoint(self._y)
         closed = self.op._solve_shifted_normal(rhs, shift)
         if closed is not None:
             return closed
         solution, iterations, relative = conjugate_gradient(
-            lambda d: d + shift * self.op._normal(d),
+            lambda d: d + shift * self.op.apply_normal(d),
             rhs,
             rtol=max(CG_RTOL, 10 * torch.finfo(rhs.dtype).eps),
         )

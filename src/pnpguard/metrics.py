@@ -17,6 +17,7 @@ import numpy as np
 import torch
 
 from ._arrays import ArrayLike, to_tensor
+from ._validation import positive_number
 
 # Wang, Bovik, Sheikh & Simoncelli (2004), section III-C: K1 = 0.01, K2 = 0.03 and an
 # 11 x 11 circular-symmetric Gaussian window of standard deviation 1.5.
@@ -34,20 +35,31 @@ def _check_pair(x: ArrayLike, reference: ArrayLike, data_range: Any) -> tuple[to
             f"`x` has shape {tuple(est.shape)} but `reference` has shape {tuple(ref.shape)}; "
             "they must be equal"
         )
-    if isinstance(data_range, bool) or not isinstance(data_range, (int, float, np.integer,
-                                                                   np.floating)):
-        raise TypeError(f"`data_range` must be a positive real number, got {data_range!r}")
-    if not (math.isfinite(data_range) and data_range > 0):
-        raise ValueError(f"`data_range` must be positive and finite, got {data_range!r}")
+    data_range = positive_number(data_range, "data_range")
     est = est.to(torch.float64)
     ref = ref.to(device=est.device, dtype=torch.float64)
-    return est, ref, float(data_range)
+    return est, ref, data_range
 
 
 def _per_image(values: torch.Tensor, ndim: int) -> float | np.ndarray:
     """Python float for an (H, W) input, else a float64 numpy array of shape (N,)."""
     values = values.detach().cpu().numpy()
     return float(values.reshape(())) if ndim == 2 else values
+
+
+def _psnr(
+    estimate: torch.Tensor, reference: torch.Tensor, data_range: float, dims: tuple[int, ...] | None = None
+) -> torch.Tensor:
+    """PSNR in dB of two tensors of one shape, ``+inf`` where they are equal.
+
+    The mean squared error runs over ``dims`` (every axis when None, one value
+    for the whole tensor), in the tensors' dtype; callers pass float64.
+    ``10 log10(R^2 / 0)`` is defined as ``+inf`` and computed without a
+    division (no error, no warning).
+    """
+    squared = (estimate - reference) ** 2
+    mse = squared.mean() if dims is None else squared.mean(dim=dims)
+    return torch.where(mse > 0, 10.0 * torch.log10(data_range**2 / mse), torch.full_like(mse, math.inf))
 
 
 def psnr(x: ArrayLike, reference: ArrayLike, *, data_range: float) -> float | np.ndarray:
@@ -68,7 +80,8 @@ def psnr(x: ArrayLike, reference: ArrayLike, *, data_range: float) -> float | np
     float or numpy.ndarray
         A float for ``(H, W)`` inputs; for ``(N, C, H, W)`` a float64 array of
         length ``N``, the PSNR of each image over all its channels. ``inf``
-        where the estimate equals the reference.
+        (no error, no warning) where the estimate equals the reference: the
+        MSE is then 0 and :math:`R^2 / 0` is taken as :math:`+\\infty`.
 
     Raises
     ------
@@ -96,12 +109,7 @@ def psnr(x: ArrayLike, reference: ArrayLike, *, data_range: float) -> float | np
     20.0
     """
     est, ref, data_range = _check_pair(x, reference, data_range)
-    mse = ((est - ref) ** 2).mean(dim=(-2, -1) if est.ndim == 2 else (1, 2, 3))
-    # 10 log10(R^2 / 0) = +inf exactly, without a division warning.
-    value = torch.where(
-        mse > 0, 10.0 * torch.log10(data_range**2 / mse), torch.full_like(mse, math.inf)
-    )
-    return _per_image(value, est.ndim)
+    return _per_image(_psnr(est, ref, data_range, None if est.ndim == 2 else (1, 2, 3)), est.ndim)
 
 
 def _gaussian_window(dtype: torch.dtype, device: torch.device) -> torch.Tensor:

@@ -36,7 +36,8 @@ from ._report import (
     ranking,
     write_report,
 )
-from ._results import CAUTION, BenchmarkRun, load_arrays, load_results
+from .._caution import CAUTION
+from ._results import BenchmarkRun, load_arrays, load_results
 from ._runner import run_suite
 from ._tasks import (
     FAMILIES,

@@ -122,8 +122,8 @@ def tikhonov(problem: Problem, *, weight: float) -> BaselineRun:
         )
         return _direct(torch.fft.irfft2(spectrum, s=problem.shape))
     x, iterations, relative = conjugate_gradient(
-        lambda v: op._normal(v) / scale + weight * _periodic_laplacian(v),
-        op._adjoint(y) / scale,
+        lambda v: op.apply_normal(v) / scale + weight * _periodic_laplacian(v),
+        op.apply_adjoint(y) / scale,
         rtol=TIKHONOV_RTOL,
         max_iter=TIKHONOV_MAX_ITER,
     )
@@ -159,7 +159,7 @@ def tv_reconstruction(
     op = problem.op
     norm = op.norm_bound().value
     y = torch.from_numpy(problem.y) / norm
-    x = op._adjoint(y) / norm
+    x = op.apply_adjoint(y) / norm
     x_bar = x.clone()
     p = torch.zeros_like(y)
     q_rows, q_cols = torch.zeros_like(x), torch.zeros_like(x)
@@ -168,13 +168,13 @@ def tv_reconstruction(
     converged = False
     for _ in range(max_iter):
         # prox of sigma F1*, F1(z) = ||z - y'||^2 / 2: (v - sigma y') / (1 + sigma).
-        p = (p + sigma * (op._forward(x_bar) / norm - y)) / (1.0 + sigma)
+        p = (p + sigma * (op.apply(x_bar) / norm - y)) / (1.0 + sigma)
         # prox of sigma F2*, F2 = w ||.||_{2,1}: projection onto pixelwise |q| <= w.
         g_rows, g_cols = forward_gradient(x_bar)
         q_rows, q_cols = q_rows + sigma * g_rows, q_cols + sigma * g_cols
         shrink = torch.clamp(torch.sqrt(q_rows**2 + q_cols**2) / weight, min=1.0)
         q_rows, q_cols = q_rows / shrink, q_cols / shrink
-        x_new = x - tau * (op._adjoint(p) / norm + gradient_adjoint(q_rows, q_cols))
+        x_new = x - tau * (op.apply_adjoint(p) / norm + gradient_adjoint(q_rows, q_cols))
         x_bar = 2.0 * x_new - x
         change = float(torch.linalg.vector_norm(x_new - x)) / max(float(torch.linalg.vector_norm(x_new)), 1e-300)
         residuals.append(change)

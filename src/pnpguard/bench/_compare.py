@@ -5,6 +5,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any
 
+from .._validation import choice, nonnegative_number
+
 #: What a comparison can look at, sorted.
 ASPECTS = ("flags", "quality", "timings", "verdicts")
 #: Checked unless told otherwise (timings are noisy on shared machines).
@@ -153,13 +155,10 @@ def compare_results(
     old run did not raise; a (task, method) of the old file missing from the
     new one. Improvements and new runs are listed but pass.
     """
-    aspects = tuple(sorted(set(aspects)))
-    unknown = [a for a in aspects if a not in ASPECTS]
-    if unknown:
-        raise ValueError(f"unknown aspect(s) {', '.join(unknown)}: valid aspects are {', '.join(ASPECTS)}")
-    for value, name in ((psnr_tol, "psnr_tol"), (ssim_tol, "ssim_tol"), (time_ratio, "time_ratio")):
-        if not isinstance(value, (int, float)) or value < 0:
-            raise ValueError(f"`{name}` must be a non-negative number, got {value!r}")
+    aspects = tuple(sorted(choice(aspect, "aspects", ASPECTS) for aspect in set(aspects)))
+    psnr_tol = nonnegative_number(psnr_tol, "psnr_tol")
+    ssim_tol = nonnegative_number(ssim_tol, "ssim_tol")
+    time_ratio = nonnegative_number(time_ratio, "time_ratio")
     old_shape, new_shape = old["suite"].get("shape"), new["suite"].get("shape")
     if old_shape != new_shape:
         raise ValueError(

@@ -16,6 +16,7 @@ from typing import Any
 
 import numpy as np
 
+from .._validation import unknown_message
 from ..check import CheckReport, check_denoiser
 from ..guarantee import Guarantee, Refused
 from ..solvers import Reconstruction, admm, douglas_rachford, forward_backward
@@ -138,7 +139,7 @@ def run_baseline(name: str, problem: Problem, parameters: dict[str, Any]) -> Out
     elif name == "fbp":
         run = bl.fbp(problem, filter=parameters["filter"], cutoff=parameters["cutoff"])
     else:
-        raise ValueError(f"unknown baseline {name!r}: valid names are {', '.join(sorted(BASELINES))}")
+        raise ValueError(unknown_message("baseline", name, BASELINES))
     return Outcome(
         status="ok",
         x=run.x,

@@ -9,10 +9,10 @@ command line resolves denoiser names here.
 
 from __future__ import annotations
 
-import difflib
 from collections.abc import Callable
 from dataclasses import dataclass
 
+from .._validation import image_shape, positive_number, unknown_message
 from ..denoisers import (
     Denoiser,
     GaussianSmoothing,
@@ -58,8 +58,8 @@ class ShippedDenoiser:
     build: Callable[[float, Shape], Denoiser]
 
     def make(self, strength: float, shape: Shape) -> Denoiser:
-        """Build the denoiser at ``strength`` for images of ``shape``."""
-        return self.build(float(strength), tuple(shape))
+        """Build the denoiser at ``strength`` (a positive number) for images of ``shape``."""
+        return self.build(positive_number(strength, "strength"), image_shape(shape, "shape"))
 
 
 #: Strengths tried when tuning: a geometric grid from 1e-4 to 0.1, ratio 10^(1/5).
@@ -154,13 +154,8 @@ def get_denoiser(name: str) -> ShippedDenoiser:
     Raises
     ------
     ValueError
-        If ``name`` is unknown (the message lists the valid names).
+        If ``name`` is unknown (the message lists the valid names and the closest).
     """
     if name not in _REGISTRY:
-        close = difflib.get_close_matches(str(name), list(_REGISTRY), n=1)
-        hint = f"; did you mean {close[0]!r}?" if close else ""
-        raise ValueError(
-            f"unknown shipped denoiser {name!r}: valid names are "
-            f"{', '.join(sorted(_REGISTRY))}{hint}"
-        )
+        raise ValueError(unknown_message("shipped denoiser", name, _REGISTRY))
     return _REGISTRY[name]

@@ -45,7 +45,8 @@ from typing import Any
 
 import numpy as np
 
-from .._caution import CAUTION  # noqa: F401  (re-exported: shown with tomography results)
+from .._fileformat import check_format
+from .._version import package_version
 
 FORMAT = "pnpguard-benchmark-results"
 FORMAT_VERSION = 1
@@ -83,11 +84,9 @@ def environment(threads: int) -> dict[str, Any]:
     import skimage
     import torch
 
-    from .. import __version__
-
     status = _git("status", "--porcelain", "--untracked-files=no")
     return {
-        "pnpguard": __version__,
+        "pnpguard": package_version(),
         "git_commit": _git("rev-parse", "HEAD"),
         "git_dirty": None if status is None else bool(status),
         "python": platform.python_version(),
@@ -191,13 +190,7 @@ def validate(document: Any, source: str = "results") -> dict[str, Any]:
     ValueError
         Naming what is wrong.
     """
-    if not isinstance(document, dict) or document.get("format") != FORMAT:
-        raise ValueError(f"{source} is not a {FORMAT} file")
-    if document.get("format_version") != FORMAT_VERSION:
-        raise ValueError(
-            f"{source} has format version {document.get('format_version')!r}; this version of "
-            f"pnpguard reads version {FORMAT_VERSION}"
-        )
+    check_format(document, source, FORMAT, FORMAT_VERSION)
     for key in ("suite", "settings", "environment", "tasks", "results"):
         if key not in document:
             raise ValueError(f"{source} lacks the {key!r} entry")

@@ -11,6 +11,8 @@ from typing import Any
 import numpy as np
 import torch
 
+from .._caution import CAUTION
+from .._validation import positive_int, unknown_message
 from ..metrics import psnr, ssim
 from ._methods import (
     DenoiserCache,
@@ -22,7 +24,6 @@ from ._methods import (
     run_pnp,
 )
 from ._results import (
-    CAUTION,
     FORMAT,
     FORMAT_VERSION,
     BenchmarkRun,
@@ -44,10 +45,7 @@ def _select(suite: Suite, methods: Iterable[str] | None) -> dict[str, tuple[Meth
     known = {m.name for chosen in per_task.values() for m in chosen}
     unknown = sorted(wanted - known)
     if unknown:
-        raise ValueError(
-            f"`methods` has names that no task of suite {suite.name!r} runs: {', '.join(unknown)}; "
-            f"valid names are {', '.join(sorted(known))}"
-        )
+        raise ValueError(unknown_message(f"method (in `methods`) for suite {suite.name!r}", unknown[0], known))
     return {name: tuple(m for m in chosen if m.name in wanted) for name, chosen in per_task.items()}
 
 
@@ -139,8 +137,7 @@ def run_suite(
     suite = get_suite(suite) if isinstance(suite, str) else suite
     tuned = load_tuned() if tuned is None else tuned
     budget = suite.check_budget if check_budget is None else check_budget
-    if isinstance(threads, bool) or not isinstance(threads, int) or threads < 1:
-        raise ValueError(f"`threads` must be a positive integer, got {threads!r}")
+    threads = positive_int(threads, "threads")
     selected = _select(suite, methods)
     total = sum(len(chosen) for chosen in selected.values())
     bar = None

@@ -10,13 +10,13 @@ parameters are tuned once (``benchmarks/tune_suite.py``).
 
 from __future__ import annotations
 
-import difflib
 import math
 from dataclasses import dataclass, field
 
 import numpy as np
 import torch
 
+from .._validation import unknown_message
 from ..fidelity import LeastSquares
 from ..operators import (
     Convolution,
@@ -219,11 +219,10 @@ class Problem:
         """``A^T y / ||A||^2`` (float64 tensor), the solvers' default first iterate.
 
         It is also the image the denoiser check samples around: the kind of
-        image the denoiser meets in the first iterations.
+        image the denoiser meets in the first iterations
+        (:meth:`LeastSquares.start_image`).
         """
-        bound = self.op.norm_bound().value
-        back = self.op._adjoint(torch.from_numpy(self.y))
-        return back / bound**2
+        return self.fidelity.start_image()
 
 
 @dataclass(frozen=True)
@@ -406,23 +405,17 @@ def task_names() -> tuple[str, ...]:
     return tuple(TASKS)
 
 
-def _unknown(kind: str, name: object, valid: tuple[str, ...]) -> ValueError:
-    close = difflib.get_close_matches(str(name), valid, n=1)
-    hint = f"; did you mean {close[0]!r}?" if close else ""
-    return ValueError(f"unknown {kind} {name!r}: valid names are {', '.join(sorted(valid))}{hint}")
-
-
 def get_task(name: str) -> Task:
     """The task called ``name`` (see :func:`task_names`)."""
     if name not in TASKS:
-        raise _unknown("task", name, task_names())
+        raise ValueError(unknown_message("task", name, TASKS))
     return TASKS[name]
 
 
 def get_suite(name: str) -> Suite:
     """The suite called ``name`` (see :func:`suite_names`)."""
     if name not in SUITES:
-        raise _unknown("suite", name, suite_names())
+        raise ValueError(unknown_message("suite", name, SUITES))
     return SUITES[name]
 
 

@@ -22,6 +22,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from .._fileformat import check_format
+
 FORMAT = "pnpguard-tuned-parameters"
 FORMAT_VERSION = 1
 
@@ -104,13 +106,7 @@ def load_tuned(path: str | Path | None = None) -> TunedParameters:
         data = json.loads(raw)
     except json.JSONDecodeError as error:
         raise ValueError(f"{str(path)!r} is not valid JSON: {error}") from None
-    if not isinstance(data, dict) or data.get("format") != FORMAT:
-        raise ValueError(f"{str(path)!r} is not a {FORMAT} file")
-    if data.get("format_version") != FORMAT_VERSION:
-        raise ValueError(
-            f"{str(path)!r} has format version {data.get('format_version')!r}; this version of "
-            f"pnpguard reads version {FORMAT_VERSION}"
-        )
+    check_format(data, repr(str(path)), FORMAT, FORMAT_VERSION)
     if not isinstance(data.get("tasks"), dict):
         raise ValueError(f"{str(path)!r} lacks a 'tasks' mapping")
     label = "shipped tuned.json" if path == SHIPPED_TUNED else str(path)

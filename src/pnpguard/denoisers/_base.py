@@ -20,13 +20,13 @@ after that first call; the solvers monitor the finiteness of their iterates.
 from __future__ import annotations
 
 import abc
-import math
 from collections.abc import Callable, Iterable
 from typing import Any
 
 import torch
 
 from .._arrays import ArrayLike, from_tensor, to_tensor
+from .._validation import positive_number
 from ._facts import Fact
 
 _FLOAT_DTYPES = (torch.float32, torch.float64)
@@ -34,19 +34,6 @@ _FLOAT_DTYPES = (torch.float32, torch.float64)
 
 class DenoiserError(RuntimeError):
     """A denoiser returned something that is not a finite image of its input's shape."""
-
-
-def check_sigma(sigma: Any, name: str = "sigma", *, required: bool = False) -> float | None:
-    """Validate a strength (noise level in intensity units): positive and finite, or None."""
-    if sigma is None:
-        if required:
-            raise ValueError(f"`{name}` is required: the noise level in the image's intensity units")
-        return None
-    if isinstance(sigma, bool) or not isinstance(sigma, (int, float)):
-        raise TypeError(f"`{name}` must be a positive number, got {type(sigma).__name__}")
-    if not (math.isfinite(sigma) and sigma > 0):
-        raise ValueError(f"`{name}` must be a positive finite number, got {sigma!r}")
-    return float(sigma)
 
 
 def _non_finite_text(out: torch.Tensor) -> str | None:
@@ -116,7 +103,7 @@ class Denoiser(abc.ABC):
             if not isinstance(fact, Fact):
                 raise TypeError(f"`facts` must hold Fact objects, got {type(fact).__name__}")
         self._name = name
-        self._sigma = check_sigma(sigma)
+        self._sigma = None if sigma is None else positive_number(sigma, "sigma")
         self._differentiable = differentiable
         self._facts = facts
         self._checked = False

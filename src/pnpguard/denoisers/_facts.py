@@ -12,23 +12,15 @@ firmly nonexpansive; the *residual* map is ``D - I``.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, replace
-from typing import Any, Union
+from typing import Union
+
+from .._validation import choice, nonnegative_number, number, number_in
 
 #: The kinds of statement a Fact can make, sorted.
 FACT_KINDS = ("averaged", "linear_symmetric", "nonexpansive", "proximal")
 
 _USER_SOURCE = "the user's claim"
-
-
-def _check_number(value: Any, name: str, *, low: float = 0.0, high: float = math.inf) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise TypeError(f"`{name}` must be a real number, got {type(value).__name__}")
-    value = float(value)
-    if not (math.isfinite(value) and low <= value <= high):
-        raise ValueError(f"`{name}` must be a finite number in [{low:g}, {high:g}], got {value!r}")
-    return value
 
 
 @dataclass(frozen=True)
@@ -105,24 +97,24 @@ class Fact:
     tolerance: float = 0.0
 
     def __post_init__(self) -> None:
-        if self.kind not in FACT_KINDS:
-            raise ValueError(f"`kind` must be one of {sorted(FACT_KINDS)}, got {self.kind!r}")
+        choice(self.kind, "kind", FACT_KINDS)
         if not isinstance(self.verified, bool):
             raise TypeError(f"`verified` must be a bool, got {type(self.verified).__name__}")
         if not isinstance(self.source, str):
             raise TypeError(f"`source` must be a string, got {type(self.source).__name__}")
         set_ = object.__setattr__
-        set_(self, "tolerance", _check_number(self.tolerance, "tolerance"))
-        for field in ("theta", "lipschitz", "residual_lipschitz"):
+        set_(self, "tolerance", nonnegative_number(self.tolerance, "tolerance"))
+        if self.theta is not None:
+            set_(self, "theta", number_in(self.theta, "theta", 0.0, 1.0))
+        for field in ("lipschitz", "residual_lipschitz"):
             value = getattr(self, field)
             if value is not None:
-                high = 1.0 if field == "theta" else math.inf
-                set_(self, field, _check_number(value, field, high=high))
+                set_(self, field, nonnegative_number(value, field))
         if self.spectrum is not None:
             if len(self.spectrum) != 2:
                 raise ValueError(f"`spectrum` must be a pair (a, b), got {self.spectrum!r}")
-            low = _check_number(self.spectrum[0], "spectrum[0]", low=-math.inf)
-            high = _check_number(self.spectrum[1], "spectrum[1]", low=-math.inf)
+            low = number(self.spectrum[0], "spectrum[0]")
+            high = number(self.spectrum[1], "spectrum[1]")
             if low > high:
                 raise ValueError(f"`spectrum` must satisfy a <= b, got {self.spectrum!r}")
             set_(self, "spectrum", (low, high))

@@ -8,7 +8,8 @@ import numpy as np
 import torch
 
 from .._arrays import check_image_shape
-from ..operators._base import Shape, _as_shape
+from .._validation import image_shape, positive_number
+from ..operators._base import Shape
 from ._base import Denoiser
 from ._facts import Fact
 
@@ -125,14 +126,9 @@ class GaussianSmoothing(Denoiser):
         truncate: float = 4.0,
         name: str = "gaussian",
     ):
-        for value, label in ((width, "width"), (truncate, "truncate")):
-            if isinstance(value, bool) or not isinstance(value, (int, float)):
-                raise TypeError(f"`{label}` must be a positive number, got {type(value).__name__}")
-            if not (math.isfinite(value) and value > 0):
-                raise ValueError(f"`{label}` must be a positive finite number, got {value!r}")
-        self.width = float(width)
-        self.truncate = float(truncate)
-        self.shape = None if shape is None else _as_shape(shape, "shape")
+        self.width = positive_number(width, "width")
+        self.truncate = positive_number(truncate, "truncate")
+        self.shape = None if shape is None else image_shape(shape, "shape")
         self._taps = gaussian_taps(self.width, self.truncate)
         self._transfers: dict[tuple, torch.Tensor] = {}
         super().__init__(

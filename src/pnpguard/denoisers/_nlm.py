@@ -6,7 +6,8 @@ import numpy as np
 import torch
 from skimage.restoration import denoise_nl_means
 
-from ._base import Denoiser, check_sigma
+from .._validation import positive_int, positive_number
+from ._base import Denoiser
 
 #: Filtering parameter ``h = factor * sigma``; scikit-image's documentation
 #: suggests h equal to sigma "or slightly less" (common practice).
@@ -55,13 +56,10 @@ class NonLocalMeans(Denoiser):
         patch_distance: int = 6,
         name: str = "nlm",
     ):
-        sigma = check_sigma(sigma, required=True)
-        self.h = check_sigma(h_factor, "h_factor", required=True) * sigma
-        for value, label in ((patch_size, "patch_size"), (patch_distance, "patch_distance")):
-            if isinstance(value, bool) or not isinstance(value, int) or value < 1:
-                raise ValueError(f"`{label}` must be a positive integer, got {value!r}")
-        self.patch_size = patch_size
-        self.patch_distance = patch_distance
+        sigma = positive_number(sigma, "sigma")
+        self.h = positive_number(h_factor, "h_factor") * sigma
+        self.patch_size = positive_int(patch_size, "patch_size")
+        self.patch_distance = positive_int(patch_distance, "patch_distance")
         super().__init__(name=name, sigma=sigma, differentiable=False, facts=())
 
     def _denoise(self, t: torch.Tensor) -> torch.Tensor:

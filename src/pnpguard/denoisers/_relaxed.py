@@ -4,11 +4,11 @@ from __future__ import annotations
 
 from collections.abc import Callable
 
-import math
 from typing import Any
 
 import torch
 
+from .._validation import number_in
 from ._base import Denoiser
 from ._facts import relax_fact
 from ._wrap import as_denoiser
@@ -86,13 +86,10 @@ def relaxed(denoiser: Any, s: float) -> Denoiser:
        of averaged nonexpansive operators", J. Math. Anal. Appl. 425 (2015)
        55-70, doi:10.1016/j.jmaa.2014.11.044 (Definition 1.1 of averaged maps).
     """
-    if isinstance(s, bool) or not isinstance(s, (int, float)):
-        raise TypeError(f"`s` must be a number in (0, 1], got {type(s).__name__}")
-    if not (math.isfinite(s) and 0.0 < s <= 1.0):
-        raise ValueError(f"`s` must be in (0, 1], got {s!r}")
+    s = number_in(s, "s", 0.0, 1.0, low_open=True)
     denoiser = as_denoiser(denoiser)
     if s == 1.0:
         return denoiser
     if isinstance(denoiser, _Relaxed):
-        return _Relaxed(denoiser.denoiser, denoiser.s * float(s))
-    return _Relaxed(denoiser, float(s))
+        return _Relaxed(denoiser.denoiser, denoiser.s * s)
+    return _Relaxed(denoiser, s)

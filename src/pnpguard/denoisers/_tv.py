@@ -10,7 +10,8 @@ from dataclasses import dataclass
 import torch
 import torch.nn.functional as F
 
-from ._base import Denoiser, check_sigma
+from .._validation import positive_int, positive_number
+from ._base import Denoiser
 from ._facts import Fact
 
 #: ``weight = factor * sigma`` when no weight is given (see :class:`TotalVariation`).
@@ -244,16 +245,14 @@ class TotalVariation(Denoiser):
         max_iter: int = DEFAULT_MAX_ITER,
         name: str = "tv",
     ):
-        sigma = check_sigma(sigma)
+        sigma = None if sigma is None else positive_number(sigma, "sigma")
         if weight is None:
             if sigma is None:
                 raise ValueError("give `sigma` (noise level) or `weight` (TV weight)")
             weight = DEFAULT_WEIGHT_FACTOR * sigma
-        self.weight = check_sigma(weight, "weight")
-        self.tol = check_sigma(tol, "tol")
-        if isinstance(max_iter, bool) or not isinstance(max_iter, int) or max_iter < 1:
-            raise ValueError(f"`max_iter` must be a positive integer, got {max_iter!r}")
-        self.max_iter = max_iter
+        self.weight = positive_number(weight, "weight")
+        self.tol = positive_number(tol, "tol")
+        self.max_iter = positive_int(max_iter, "max_iter")
         fact = Fact.proximal(
             f"prox of {self.weight:g} x isotropic discrete TV (Rudin, Osher & Fatemi 1992), "
             "solved to a duality gap that bounds the distance to the exact prox (1-strong "

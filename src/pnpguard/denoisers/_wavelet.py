@@ -6,7 +6,8 @@ import numpy as np
 import pywt
 import torch
 
-from ._base import Denoiser, check_sigma
+from .._validation import positive_int, positive_number
+from ._base import Denoiser
 from ._facts import Fact
 
 #: Threshold in units of the noise level: ``threshold = factor * sigma``.
@@ -116,18 +117,12 @@ class WaveletShrinkage(Denoiser):
         cycle_spins: int = 1,
         name: str = "wavelet",
     ):
-        sigma = check_sigma(sigma, required=True)
+        sigma = positive_number(sigma, "sigma")
         self.basis = _orthogonal_wavelet(wavelet)
-        if levels is not None and (
-            isinstance(levels, bool) or not isinstance(levels, int) or levels < 1
-        ):
-            raise ValueError(f"`levels` must be a positive integer or None, got {levels!r}")
-        if isinstance(cycle_spins, bool) or not isinstance(cycle_spins, int) or cycle_spins < 1:
-            raise ValueError(f"`cycle_spins` must be a positive integer, got {cycle_spins!r}")
-        self.levels = levels
-        self.threshold_factor = check_sigma(threshold_factor, "threshold_factor", required=True)
+        self.levels = None if levels is None else positive_int(levels, "levels")
+        self.threshold_factor = positive_number(threshold_factor, "threshold_factor")
         self.threshold = self.threshold_factor * sigma
-        self.cycle_spins = cycle_spins
+        self.cycle_spins = positive_int(cycle_spins, "cycle_spins")
         if cycle_spins == 1:
             source = (
                 "soft thresholding of the detail coefficients in a periodised orthonormal "

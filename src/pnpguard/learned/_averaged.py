@@ -11,6 +11,7 @@ import torch.nn.functional as F
 from torch import nn
 from torch.nn.utils import parametrize
 
+from .._validation import int_at_least
 from ._lipschitz import (
     BOUND_GRID,
     SpectralNormaliser,
@@ -155,10 +156,8 @@ class AveragedCNN(nn.Module):
         theta_range: tuple[float, float] = (0.5, 0.95),
     ) -> None:
         super().__init__()
-        if depth < 2:
-            raise ValueError(f"`depth` must be at least 2, got {depth}")
-        if width < 9:
-            raise ValueError(f"`width` must be at least 9 (the 3x3 DCT frame), got {width}")
+        depth = int_at_least(depth, "depth", 2)
+        width = int_at_least(width, "width", 9)  # the 3x3 DCT frame
         low, high = (float(t) for t in theta_range)
         if not 0.5 <= low <= high < 1.0:
             raise ValueError(f"`theta_range` must satisfy 0.5 <= low <= high < 1, got {theta_range!r}")

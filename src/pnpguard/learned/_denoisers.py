@@ -12,12 +12,11 @@ from pathlib import Path
 import torch
 from torch import nn
 
-from ..denoisers._base import Denoiser, check_sigma
+from .._validation import number, number_in, positive_number
+from ..denoisers._base import Denoiser
 from ..denoisers._facts import ClaimLike, Fact, as_claim
+from ._architectures import BY_CLASS_NAME
 from ._averaged import AveragedCNN, LayerBounds
-from ._gradient_step import GradientStepNetwork
-from ._multiscale import MultiscaleResidualCNN
-from ._residual import ResidualCNN
 from ._weights import read_weights
 
 #: Folder of the weights shipped with the package.
@@ -25,12 +24,6 @@ WEIGHTS_DIR = Path(__file__).resolve().parent / "weights"
 RESIDUAL_WEIGHTS = WEIGHTS_DIR / "residual_cnn.pt"
 AVERAGED_WEIGHTS = WEIGHTS_DIR / "averaged_cnn.pt"
 
-_ARCHITECTURES: dict[str, type[nn.Module]] = {
-    "AveragedCNN": AveragedCNN,
-    "GradientStepNetwork": GradientStepNetwork,
-    "MultiscaleResidualCNN": MultiscaleResidualCNN,
-    "ResidualCNN": ResidualCNN,
-}
 #: Architectures that predict the noise and carry no facts.
 _RESIDUAL_FAMILY = ("MultiscaleResidualCNN", "ResidualCNN")
 
@@ -74,7 +67,7 @@ class LearnedDenoiser(Denoiser):
     ) -> None:
         if not isinstance(module, nn.Module):
             raise TypeError(f"`module` must be a torch.nn.Module, got {type(module).__name__}")
-        super().__init__(name=name, sigma=check_sigma(sigma, required=True), differentiable=True, facts=facts)
+        super().__init__(name=name, sigma=positive_number(sigma, "sigma"), differentiable=True, facts=facts)
         self._module = copy.deepcopy(module).eval()
         for parameter in self._module.parameters():
             parameter.requires_grad_(False)
@@ -149,10 +142,10 @@ def load_network(path: str | Path) -> nn.Module:
 def _load(path: str | Path, expected: tuple[str, ...] | None = None) -> tuple[nn.Module, dict]:
     payload = read_weights(path)
     architecture = payload["architecture"]
-    if architecture not in _ARCHITECTURES:
+    if architecture not in BY_CLASS_NAME:
         raise ValueError(
             f"`path` {str(path)!r} holds architecture {architecture!r}; "
-            f"known: {sorted(_ARCHITECTURES)}"
+            f"known: {sorted(BY_CLASS_NAME)}"
         )
     if expected is not None and architecture not in expected:
         raise ValueError(f"`weights` {str(path)!r} holds a {architecture}, not a {' or '.join(expected)}")
@@ -161,7 +154,7 @@ def _load(path: str | Path, expected: tuple[str, ...] | None = None) -> tuple[nn
         # Files written before the option existed were initialised by torch's default.
         config.setdefault("initialisation", "torch-default")
     try:
-        model = _ARCHITECTURES[architecture](**config)
+        model = BY_CLASS_NAME[architecture].network(**config)
         model.load_state_dict(payload["state_dict"], strict=True)
     except (TypeError, RuntimeError) as error:
         raise ValueError(f"`path` {str(path)!r} does not fit {architecture}: {error}") from error
@@ -169,7 +162,7 @@ def _load(path: str | Path, expected: tuple[str, ...] | None = None) -> tuple[nn
 
 
 def _check_trained_sigma(sigma: float, training: dict) -> float:
-    sigma = check_sigma(sigma, required=True)
+    sigma = positive_number(sigma, "sigma")
     low, high = training.get("noise_range", (0.0, math.inf))
     if not low <= sigma <= high * (1 + 1e-9):
         raise ValueError(
@@ -307,13 +300,11 @@ def averaged_cnn(
         if "default_theta" not in training:
             raise ValueError(f"`theta` is required: {str(path)!r} records no default theta")
         theta = training["default_theta"]
-    if isinstance(theta, bool) or not isinstance(theta, (int, float)):
-        raise TypeError(f"`theta` must be a number, got {type(theta).__name__}")
+    theta = number(theta, "theta")
     low, high = model.theta_range
     if not low <= theta <= high:
         raise ValueError(f"`theta` = {theta!r} is outside the range the network was trained for, [{low:g}, {high:g}]")
-    if isinstance(gain, bool) or not isinstance(gain, (int, float)) or not 1.0 <= gain <= 2.0:
-        raise ValueError(f"`gain` must be a number in [1, 2], got {gain!r}")
+    gain = number_in(gain, "gain", 1.0, 2.0)
     if gain == 1.0:
         return LearnedDenoiser(
             model,

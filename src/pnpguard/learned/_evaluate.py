@@ -2,11 +2,11 @@
 
 from __future__ import annotations
 
-import math
 from collections.abc import Callable, Sequence
 
 import numpy as np
 
+from ..metrics import psnr
 from ._data import HELD_OUT_IMAGES, bundled_image
 
 #: Noise levels (on the 0-255 scale) of the recorded figures.
@@ -22,12 +22,6 @@ def noisy_copy(image: np.ndarray, sigma: float, *, seed: int = 0) -> np.ndarray:
     rng = np.random.default_rng(seed)
     noise = rng.standard_normal(image.shape).astype(np.float32)
     return (image + np.float32(sigma) * noise).astype(np.float32)
-
-
-def psnr_db(estimate: np.ndarray, reference: np.ndarray, data_range: float = 1.0) -> float:
-    """``10 log10(R^2 / MSE)`` in dB, computed in double precision."""
-    mse = float(np.mean((np.asarray(estimate, np.float64) - np.asarray(reference, np.float64)) ** 2))
-    return 10.0 * math.log10(data_range**2 / mse)
 
 
 def held_out_table(
@@ -54,7 +48,8 @@ def held_out_table(
     Returns
     -------
     dict
-        ``table[name][str(level)] = psnr``.
+        ``table[name][str(level)] = psnr`` (:func:`pnpguard.psnr`, data
+        range 1; ``inf`` for an estimate equal to the clean picture).
     """
     table: dict[str, dict[str, float]] = {}
     for name in names:
@@ -62,5 +57,5 @@ def held_out_table(
         table[name] = {}
         for level in levels:
             sigma = level / 255.0
-            table[name][str(level)] = psnr_db(denoise(noisy_copy(clean, sigma, seed=seed), sigma), clean)
+            table[name][str(level)] = psnr(denoise(noisy_copy(clean, sigma, seed=seed), sigma), clean, data_range=1.0)
     return table

@@ -54,6 +54,8 @@ import torch
 import torch.nn.functional as F
 from torch import nn
 
+from .._validation import image_shape
+
 #: Frequency grid (per axis) of the certified bound.
 BOUND_GRID = 128
 #: Image side of the power iteration that estimates the bound during training.
@@ -66,12 +68,6 @@ def _check_weight(weight: torch.Tensor) -> None:
         raise ValueError(f"`weight` must be a (c_out, c_in, k_h, k_w) tensor, got {got}")
     if weight.is_complex() or not weight.is_floating_point():
         raise TypeError(f"`weight` must be a real floating tensor, got dtype {weight.dtype}")
-
-
-def _check_size(size: tuple[int, int]) -> tuple[int, int]:
-    if len(size) != 2 or any(isinstance(s, bool) or int(s) != s or s < 1 for s in size):
-        raise ValueError(f"`size` must be a pair of positive integers (H, W), got {size!r}")
-    return int(size[0]), int(size[1])
 
 
 def frequency_matrices(weight: torch.Tensor, size: tuple[int, int]) -> torch.Tensor:
@@ -95,7 +91,7 @@ def frequency_matrices(weight: torch.Tensor, size: tuple[int, int]) -> torch.Ten
         singular values.
     """
     _check_weight(weight)
-    h, w = _check_size(size)
+    h, w = image_shape(size, "size")
     kh, kw = weight.shape[-2:]
     real = torch.float64 if weight.dtype == torch.float64 else torch.float32
     # Phases exp(-2 pi i u t / H); taps t >= H wrap around automatically.

@@ -8,6 +8,7 @@ import torch
 import torch.nn.functional as F
 from torch import nn
 
+from .._validation import choice, positive_int
 from ._residual import noise_level_map, subtract_predicted_noise
 
 
@@ -95,13 +96,11 @@ class MultiscaleResidualCNN(nn.Module):
         self, widths: tuple[int, ...] | list[int] = (16, 32, 64, 64), blocks: int = 1, activation: str = "relu"
     ) -> None:
         super().__init__()
-        if activation not in ACTIVATIONS:
-            raise ValueError(f"`activation` must be one of {sorted(ACTIVATIONS)}, got {activation!r}")
-        widths = tuple(widths)
-        if len(widths) < 2 or any(isinstance(w, bool) or not isinstance(w, int) or w < 1 for w in widths):
+        choice(activation, "activation", ACTIVATIONS)
+        widths = tuple(positive_int(w, f"widths[{level}]") for level, w in enumerate(widths))
+        if len(widths) < 2:
             raise ValueError(f"`widths` must hold at least two positive integers, got {widths!r}")
-        if isinstance(blocks, bool) or not isinstance(blocks, int) or blocks < 1:
-            raise ValueError(f"`blocks` must be a positive integer, got {blocks!r}")
+        blocks = positive_int(blocks, "blocks")
         self.widths = widths
         self.blocks = blocks
         self.activation = activation

@@ -8,6 +8,8 @@ import torch
 import torch.nn.functional as F
 from torch import nn
 
+from .._validation import choice, int_at_least, positive_int
+
 
 #: Initial weight schemes of :class:`ResidualCNN`.
 INITIALISATIONS = ("he", "torch-default")
@@ -125,17 +127,11 @@ class ResidualCNN(nn.Module):
 
     def __init__(self, depth: int = 12, width: int = 32, unshuffle: int = 1, initialisation: str = "he") -> None:
         super().__init__()
-        if initialisation not in INITIALISATIONS:
-            raise ValueError(f"`initialisation` must be one of {list(INITIALISATIONS)}, got {initialisation!r}")
-        if depth < 2:
-            raise ValueError(f"`depth` must be at least 2, got {depth}")
-        if width < 1:
-            raise ValueError(f"`width` must be positive, got {width}")
-        if isinstance(unshuffle, bool) or not isinstance(unshuffle, int) or unshuffle < 1:
-            raise ValueError(f"`unshuffle` must be a positive integer, got {unshuffle!r}")
-        self.depth = depth
-        self.width = width
-        self.unshuffle = unshuffle
+        choice(initialisation, "initialisation", INITIALISATIONS)
+        depth = int_at_least(depth, "depth", 2)
+        width = positive_int(width, "width")
+        unshuffle = positive_int(unshuffle, "unshuffle")
+        self.depth, self.width, self.unshuffle = depth, width, unshuffle
         pixels = unshuffle * unshuffle
         layers: list[nn.Module] = [nn.Conv2d(pixels + 1, width, 3, padding=1), nn.ReLU(inplace=True)]
         for _ in range(depth - 2):

@@ -12,11 +12,13 @@ import numpy as np
 import torch
 from torch import nn
 
+from ..metrics import _psnr
+from .._validation import choice, positive_int, positive_number
+from ._architectures import BY_CLASS_NAME, BY_NAME
 from ._averaged import AveragedCNN
 from ._data import PatchSampler
 from ._gradient_step import GradientStepNetwork
 from ._multiscale import MultiscaleResidualCNN
-from ._residual import ResidualCNN
 from ._weights import read_weights, save_weights
 
 #: Noise level (in [0, 1] intensity units) of the validation printout.
@@ -50,12 +52,6 @@ class TrainingReport:
     losses: list[float] = field(default_factory=list)
     validation_psnr: list[tuple[int, float]] = field(default_factory=list)
     path: Path | None = None
-
-
-def psnr(estimate: torch.Tensor, reference: torch.Tensor, data_range: float = 1.0) -> float:
-    """PSNR in dB, ``10 log10(R^2 / MSE)`` over the whole batch."""
-    mse = float(torch.mean((estimate.double() - reference.double()) ** 2))
-    return 10.0 * math.log10(data_range**2 / mse)
 
 
 def validation_set(
@@ -138,7 +134,8 @@ def run_training(
             if validation is not None:
                 model.eval()
                 with torch.no_grad():
-                    value = psnr(validate(model, validation[1]), validation[0])
+                    # One PSNR over the whole batch of patches (inf if it is denoised exactly).
+                    value = float(_psnr(validate(model, validation[1]).double(), validation[0].double(), 1.0))
                 model.train()
                 report.validation_psnr.append((report.steps, value))
                 bar.set_postfix(loss=f"{report.losses[-1]:.2e}", val_psnr=f"{value:.2f} dB")
@@ -207,14 +204,6 @@ def _resume(
     report.validation_psnr = [(int(s), float(v)) for s, v in state["validation_psnr"]]
     return float(state["elapsed"])
 
-
-#: The ``architecture`` argument of :func:`train_denoiser` and the class it trains.
-ARCHITECTURES: dict[str, type[nn.Module]] = {
-    "averaged": AveragedCNN,
-    "gradient-step": GradientStepNetwork,
-    "multiscale": MultiscaleResidualCNN,
-    "residual": ResidualCNN,
-}
 
 _IMAGE_SUFFIXES = (".png", ".tif", ".tiff")
 
@@ -294,7 +283,7 @@ def _build(
         from ._denoisers import load_network
 
         model = load_network(initial_weights)
-        expected = ARCHITECTURES[architecture]
+        expected = BY_NAME[architecture].network
         if expected is GradientStepNetwork and isinstance(model, MultiscaleResidualCNN):
             model = GradientStepNetwork.from_residual(model)
         if not isinstance(model, expected):
@@ -313,7 +302,7 @@ def _build(
             if architecture == "averaged":
                 model = AveragedCNN(**sizes, theta_range=theta_range)
             else:
-                model = ARCHITECTURES[architecture](**sizes)
+                model = BY_NAME[architecture].network(**sizes)
     if isinstance(model, AveragedCNN):
         model.start_normalised_training(seed=seed)
     return model
@@ -321,11 +310,10 @@ def _build(
 
 def _architecture_of(path: str | Path) -> str:
     """The ``architecture`` argument that trains the network stored in ``path``."""
-    names = {cls.__name__: name for name, cls in ARCHITECTURES.items()}
     stored = read_weights(path)["architecture"]
-    if stored not in names:
+    if stored not in BY_CLASS_NAME:
         raise ValueError(f"`initial_weights` hold an unknown architecture {stored!r}")
-    return names[stored]
+    return BY_CLASS_NAME[stored].name
 
 
 def _check_default_theta(default_theta: float | None, theta_range: tuple[float, float]) -> float:
@@ -475,14 +463,11 @@ def train_denoiser(
     """
     if architecture is None:
         architecture = "residual" if initial_weights is None else _architecture_of(initial_weights)
-    if architecture not in ARCHITECTURES:
-        raise ValueError(f"`architecture` must be one of {sorted(ARCHITECTURES)}, got {architecture!r}")
+    choice(architecture, "architecture", BY_NAME)
     if steps is None and seconds is None:
         raise ValueError("give a budget: `steps`, `seconds` or both")
-    if steps is not None and (isinstance(steps, bool) or not isinstance(steps, int) or steps < 1):
-        raise ValueError(f"`steps` must be a positive integer, got {steps!r}")
-    if seconds is not None and not (isinstance(seconds, (int, float)) and seconds > 0):
-        raise ValueError(f"`seconds` must be a positive number, got {seconds!r}")
+    steps = None if steps is None else positive_int(steps, "steps")
+    seconds = None if seconds is None else positive_number(seconds, "seconds")
     low, high = (float(v) for v in noise_range)
     if not 0.0 <= low <= high or not np.isfinite(high):
         raise ValueError(f"`noise_range` must satisfy 0 <= low <= high < inf, got {noise_range!r}")

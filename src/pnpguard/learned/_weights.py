@@ -22,6 +22,8 @@ from typing import Any
 import torch
 from torch import nn
 
+from .._fileformat import check_format
+
 FORMAT = "pnpguard-weights"
 FORMAT_VERSION = 1
 
@@ -90,13 +92,7 @@ def read_weights(path: str | Path) -> dict[str, Any]:
     if not path.is_file():
         raise FileNotFoundError(f"`path` {str(path)!r} is not a file")
     payload = torch.load(path, map_location="cpu", weights_only=True)
-    if not isinstance(payload, dict) or payload.get("format") != FORMAT:
-        raise ValueError(f"`path` {str(path)!r} is not a {FORMAT} file")
-    if payload.get("format_version") != FORMAT_VERSION:
-        raise ValueError(
-            f"`path` {str(path)!r} has format version {payload.get('format_version')!r}; "
-            f"this version of pnpguard reads version {FORMAT_VERSION}"
-        )
+    check_format(payload, f"`path` {str(path)!r}", FORMAT, FORMAT_VERSION)
     expected = {"architecture": str, "config": dict, "training": dict, "state_dict": dict}
     missing = sorted(key for key, kind in expected.items() if not isinstance(payload.get(key), kind))
     if missing:

@@ -1,9 +1,11 @@
 """Linear operator base class, lazy algebra (composition, scaling, sums) and norms.
 
-Public ``forward``/``adjoint`` validate and convert; subclasses implement the
-private ``_forward``/``_adjoint`` on tensors whose trailing two axes are the
-image and whose leading axes are batch axes. The adjoint of a composite
-operator is derived from its parts, never written by hand.
+Public ``forward``/``adjoint`` validate and convert; the public fast path
+``apply``/``apply_adjoint``/``apply_normal`` takes tensors as they are, for
+use inside iterations. Subclasses implement the private ``_forward``/``_adjoint``
+on tensors whose trailing two axes are the image and whose leading axes are
+batch axes. The adjoint of a composite operator is derived from its parts,
+never written by hand.
 """
 
 from __future__ import annotations
@@ -11,11 +13,11 @@ from __future__ import annotations
 import abc
 import math
 from dataclasses import dataclass
-from typing import Any
 
 import torch
 
 from .._arrays import ArrayLike, check_image_shape, from_tensor, to_tensor
+from .._validation import image_shape, is_real
 
 Shape = tuple[int, int]
 
@@ -69,8 +71,8 @@ class LinearOperator(abc.ABC):
     """
 
     def __init__(self, in_shape: Shape, out_shape: Shape):
-        self._in_shape = _as_shape(in_shape, "in_shape")
-        self._out_shape = _as_shape(out_shape, "out_shape")
+        self._in_shape = image_shape(in_shape, "in_shape")
+        self._out_shape = image_shape(out_shape, "out_shape")
         self._norm_cache: float | None = None
         self._bound_cache: NormBound | None = None
 
@@ -100,6 +102,43 @@ class LinearOperator(abc.ABC):
 
     def __call__(self, x: ArrayLike) -> ArrayLike:
         return self.forward(x)
+
+    def apply(self, t: torch.Tensor) -> torch.Tensor:
+        """``A t`` on a tensor: the fast path used inside iterations.
+
+        Unlike :meth:`forward` nothing is checked or converted, so the caller
+        guarantees what :meth:`forward` would check.
+
+        Parameters
+        ----------
+        t : torch.Tensor
+            float32 or float64, shaped ``(..., H, W)`` with ``(H, W) =
+            in_shape`` and any leading batch axes, on any device. Never
+            written into.
+
+        Returns
+        -------
+        torch.Tensor
+            ``(..., M, P)`` with ``(M, P) = out_shape``, same leading axes,
+            dtype and device.
+        """
+        return self._forward(t)
+
+    def apply_adjoint(self, t: torch.Tensor) -> torch.Tensor:
+        """``A^T t`` on a tensor ``(..., M, P)`` (``out_shape``): the fast path of :meth:`adjoint`.
+
+        Nothing is checked or converted (see :meth:`apply`); returns
+        ``(..., H, W)`` in ``t``'s dtype and on its device.
+        """
+        return self._adjoint(t)
+
+    def apply_normal(self, t: torch.Tensor) -> torch.Tensor:
+        """``A^T A t`` on a tensor ``(..., H, W)`` (``in_shape``), unchecked (see :meth:`apply`).
+
+        Equal to ``apply_adjoint(apply(t))``; operators with a cheaper form
+        (masks: ``m^2 t``) use it.
+        """
+        return self._normal(t)
 
     @abc.abstractmethod
     def _forward(self, x: torch.Tensor) -> torch.Tensor:
@@ -213,7 +252,7 @@ class LinearOperator(abc.ABC):
         return _Composition(self, other)
 
     def __mul__(self, scalar: float) -> LinearOperator:
-        if isinstance(scalar, bool) or not isinstance(scalar, (int, float)):
+        if not is_real(scalar):
             return NotImplemented
         return _Scaled(self, float(scalar))
 
@@ -244,16 +283,6 @@ class LinearOperator(abc.ABC):
             f"<{type(self).__name__.lstrip('_')} {_shape_text(self.in_shape)} -> "
             f"{_shape_text(self.out_shape)}{extra}>"
         )
-
-
-def _as_shape(shape: Any, name: str) -> Shape:
-    try:
-        values = tuple(int(s) for s in shape)
-    except TypeError:
-        raise TypeError(f"`{name}` must be a pair of positive integers, got {shape!r}") from None
-    if len(values) != 2 or min(values) < 1 or any(v != s for v, s in zip(values, shape)):
-        raise ValueError(f"`{name}` must be a pair of positive integers, got {shape!r}")
-    return values  # type: ignore[return-value]
 
 
 class _Adjoint(LinearOperator):

@@ -7,7 +7,8 @@ from typing import Any
 import torch
 
 from .._arrays import as_float_tensor
-from ._base import LinearOperator, NormBound, Shape, _as_shape
+from .._validation import choice, image_shape
+from ._base import LinearOperator, NormBound, Shape
 from ._cache import TransferCache
 
 _BOUNDARIES = ("periodic", "zero")
@@ -79,11 +80,9 @@ class Convolution(LinearOperator):
     """
 
     def __init__(self, psf: Any, shape: Shape, boundary: str = "periodic", *, output: str = "same"):
-        shape = _as_shape(shape, "shape")
-        if boundary not in _BOUNDARIES:
-            raise ValueError(f"`boundary` must be one of {sorted(_BOUNDARIES)}, got {boundary!r}")
-        if output not in _OUTPUTS:
-            raise ValueError(f"`output` must be one of {sorted(_OUTPUTS)}, got {output!r}")
+        shape = image_shape(shape, "shape")
+        choice(boundary, "boundary", _BOUNDARIES)
+        choice(output, "output", _OUTPUTS)
         kernel = validate_psf(psf, shape)
         kh, kw = kernel.shape
         self.boundary = boundary

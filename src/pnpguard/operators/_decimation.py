@@ -7,7 +7,8 @@ from typing import Any
 import numpy as np
 import torch
 
-from ._base import LinearOperator, Shape, _as_shape
+from .._validation import image_shape, int_at_least
+from ._base import LinearOperator, Shape
 from ._cache import TransferCache
 from ._convolution import periodic_transfer, validate_psf
 
@@ -48,10 +49,8 @@ class Decimation(LinearOperator):
     """
 
     def __init__(self, factor: int, shape: Shape, psf: Any = None):
-        shape = _as_shape(shape, "shape")
-        if isinstance(factor, bool) or not isinstance(factor, (int, np.integer)) or factor < 2:
-            raise ValueError(f"`factor` must be an integer >= 2, got {factor!r}")
-        factor = int(factor)
+        shape = image_shape(shape, "shape")
+        factor = int_at_least(factor, "factor", 2)
         if shape[0] % factor or shape[1] % factor:
             raise ValueError(f"`shape` {shape} must be divisible by `factor` {factor}")
         kernel = validate_psf(np.full((factor, factor), 1.0 / factor**2) if psf is None else psf, shape)

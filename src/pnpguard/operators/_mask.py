@@ -2,14 +2,14 @@
 
 from __future__ import annotations
 
-import math
 from typing import Any
 
 import numpy as np
 import torch
 
 from .._arrays import as_float_tensor
-from ._base import LinearOperator, Shape, _as_shape
+from .._validation import image_shape, nonnegative_int, number_in, positive_number
+from ._base import LinearOperator, Shape
 from ._cache import TransferCache
 
 
@@ -64,12 +64,6 @@ class PixelMask(LinearOperator):
         return f"{100.0 * self.mask.mean():.1f}% observed"
 
 
-def _check_fraction(fraction: float, name: str) -> float:
-    if not (isinstance(fraction, (int, float)) and 0.0 <= fraction < 1.0):
-        raise ValueError(f"`{name}` must be a number in [0, 1), got {fraction!r}")
-    return float(fraction)
-
-
 def random_pixel_mask(shape: Shape, missing: float, *, seed: int = 0) -> np.ndarray:
     """Boolean mask with a given fraction of pixels missing, chosen uniformly.
 
@@ -84,8 +78,8 @@ def random_pixel_mask(shape: Shape, missing: float, *, seed: int = 0) -> np.ndar
     seed : int
         Seed of :func:`numpy.random.default_rng`.
     """
-    shape = _as_shape(shape, "shape")
-    missing = _check_fraction(missing, "missing")
+    shape = image_shape(shape, "shape")
+    missing = number_in(missing, "missing", 0.0, 1.0, high_open=True)
     size = shape[0] * shape[1]
     rng = np.random.default_rng(seed)
     observed = np.ones(size, dtype=bool)
@@ -105,7 +99,7 @@ def dead_lines_mask(
     rows, columns : sequence of int
         Indices of the dead rows and columns.
     """
-    shape = _as_shape(shape, "shape")
+    shape = image_shape(shape, "shape")
     observed = np.ones(shape, dtype=bool)
     for name, indices, limit in (("rows", rows, shape[0]), ("columns", columns, shape[1])):
         indices = np.asarray(indices, dtype=int).ravel()
@@ -124,11 +118,9 @@ def scratch_mask(shape: Shape, count: int, *, width: float = 1.5, seed: int = 0)
     Each scratch is a segment between two random points on the image border
     region, of the given width in pixels.
     """
-    shape = _as_shape(shape, "shape")
-    if isinstance(count, bool) or not isinstance(count, (int, np.integer)) or count < 0:
-        raise ValueError(f"`count` must be a non-negative integer, got {count!r}")
-    if not (isinstance(width, (int, float)) and math.isfinite(width) and width > 0):
-        raise ValueError(f"`width` must be a positive number of pixels, got {width!r}")
+    shape = image_shape(shape, "shape")
+    count = nonnegative_int(count, "count")
+    width = positive_number(width, "width")
     rng = np.random.default_rng(seed)
     rows, cols = np.mgrid[: shape[0], : shape[1]].astype(float)
     observed = np.ones(shape, dtype=bool)

@@ -11,7 +11,8 @@ import scipy.sparse
 import torch
 
 from .._arrays import ArrayLike, as_float_tensor, check_image_shape, from_tensor, to_tensor
-from ._base import LinearOperator, Shape, _as_shape
+from .._validation import choice, image_shape, number_in, positive_int
+from ._base import LinearOperator, Shape
 
 #: About this many (pixel, angle) pairs are processed together while the
 #: system matrix is assembled (small blocks stay in cache).
@@ -31,11 +32,7 @@ def _validate_angles(angles: Any) -> np.ndarray:
 def _validate_detectors(n_detectors: Any, shape: Shape) -> int:
     if n_detectors is None:
         return math.ceil(math.hypot(*shape))
-    if isinstance(n_detectors, bool) or not isinstance(n_detectors, (int, np.integer)):
-        raise TypeError(f"`n_detectors` must be a positive integer or None, got {n_detectors!r}")
-    if n_detectors < 1:
-        raise ValueError(f"`n_detectors` must be a positive integer, got {n_detectors}")
-    return int(n_detectors)
+    return positive_int(n_detectors, "n_detectors")
 
 
 def _lower_footprint_cdf(t: np.ndarray, wide: np.ndarray, narrow: np.ndarray) -> np.ndarray:
@@ -241,7 +238,7 @@ class ParallelProjection(LinearOperator):
     """
 
     def __init__(self, shape: Shape, angles: Any, n_detectors: int | None = None):
-        shape = _as_shape(shape, "shape")
+        shape = image_shape(shape, "shape")
         self._angles = _validate_angles(angles)
         self.n_detectors = _validate_detectors(n_detectors, shape)
         super().__init__(shape, (self._angles.size, self.n_detectors))
@@ -373,10 +370,8 @@ def filtered_backprojection(
         raise TypeError(
             f"`operator` must be a ParallelProjection, got {type(operator).__name__}"
         )
-    if filter not in _WINDOWS:
-        raise ValueError(f"`filter` must be one of {sorted(_WINDOWS)}, got {filter!r}")
-    if isinstance(cutoff, bool) or not isinstance(cutoff, (int, float)) or not 0.0 < cutoff <= 1.0:
-        raise ValueError(f"`cutoff` must be a number in (0, 1], got {cutoff!r}")
+    choice(filter, "filter", _WINDOWS)
+    cutoff = number_in(cutoff, "cutoff", 0.0, 1.0, low_open=True)
     tensor, kind = to_tensor(sinogram, "sinogram")
     check_image_shape(tensor, operator.out_shape, "sinogram", "operator's output shape")
     response, padded = _filter_response(operator.n_detectors, filter, float(cutoff))

@@ -6,11 +6,14 @@ import math
 
 import numpy as np
 
+from .._validation import number, number_in, positive_int, positive_number
 
-def _odd_size(size: int, name: str = "size") -> int:
-    if isinstance(size, bool) or not isinstance(size, (int, np.integer)) or size < 1 or size % 2 == 0:
-        raise ValueError(f"`{name}` must be a positive odd integer, got {size!r}")
-    return int(size)
+
+def _odd_size(size: int) -> int:
+    size = positive_int(size, "size")
+    if size % 2 == 0:
+        raise ValueError(f"`size` must be a positive odd integer, got {size!r}")
+    return size
 
 
 def _normalise(psf: np.ndarray) -> np.ndarray:
@@ -39,8 +42,7 @@ def gaussian_psf(size: int, sigma: float) -> np.ndarray:
     ((7, 7), 1.0)
     """
     size = _odd_size(size)
-    if not (isinstance(sigma, (int, float)) and math.isfinite(sigma) and sigma > 0):
-        raise ValueError(f"`sigma` must be a positive finite number of pixels, got {sigma!r}")
+    sigma = positive_number(sigma, "sigma")
     offsets = np.arange(size) - size // 2
     profile = np.exp(-(offsets**2) / (2.0 * sigma**2))
     return _normalise(np.outer(profile, profile))
@@ -59,8 +61,7 @@ def disk_psf(radius: float, size: int | None = None) -> np.ndarray:
     size : int, optional
         Odd side length; default ``2 * ceil(radius) + 1``.
     """
-    if not (isinstance(radius, (int, float)) and math.isfinite(radius) and radius > 0):
-        raise ValueError(f"`radius` must be a positive finite number of pixels, got {radius!r}")
+    radius = positive_number(radius, "radius")
     size = _odd_size(2 * math.ceil(radius) + 1 if size is None else size)
     sub = 16
     fine = (np.arange(size * sub) + 0.5) / sub - size / 2.0
@@ -85,10 +86,8 @@ def motion_psf(length: float, angle: float, size: int | None = None) -> np.ndarr
     size : int, optional
         Odd side length; default the smallest odd size holding the segment.
     """
-    if not (isinstance(length, (int, float)) and math.isfinite(length) and length >= 1):
-        raise ValueError(f"`length` must be a finite number of pixels >= 1, got {length!r}")
-    if not (isinstance(angle, (int, float)) and math.isfinite(angle)):
-        raise ValueError(f"`angle` must be a finite number of degrees, got {angle!r}")
+    length = number_in(length, "length", 1.0, math.inf)
+    angle = number(angle, "angle")
     size = _odd_size(2 * math.ceil(length / 2.0) + 1 if size is None else size)
     centre = size // 2
     theta = math.radians(angle)

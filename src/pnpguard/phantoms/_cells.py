@@ -7,9 +7,9 @@ import math
 import numpy as np
 from scipy.special import expit, ndtr
 
+from .._validation import positive_int
 from ._fields import SmoothField
 from ._grid import (
-    check_positive_int,
     check_seed,
     check_shape,
     extent,
@@ -191,8 +191,8 @@ def cells(shape: int | tuple[int, int] = 256, *, seed: int | np.random.Generator
     """
     shape = check_shape(shape)
     rng = check_seed(seed)
-    count = check_positive_int(count, "count")
-    supersample = check_positive_int(supersample, "supersample")
+    count = positive_int(count, "count")
+    supersample = positive_int(supersample, "supersample")
     half_x, half_y = extent(shape)
 
     x, y = pixel_centres(shape)

@@ -12,10 +12,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .._validation import choice, nonnegative_int, number, number_in, positive_int, positive_number
 from ._grid import (
-    check_choice,
-    check_positive_int,
-    check_real,
     check_seed,
     check_shape,
     extent,
@@ -56,9 +54,9 @@ class Ellipse:
 
     def __post_init__(self) -> None:
         for name in ("x0", "y0", "tilt", "intensity"):
-            check_real(getattr(self, name), name)
+            number(getattr(self, name), name)
         for name in ("a", "b"):
-            check_real(getattr(self, name), name, low=0.0, open_low=True)
+            positive_number(getattr(self, name), name)
 
     @property
     def half_extent(self) -> tuple[float, float]:
@@ -136,7 +134,7 @@ def shepp_logan_ellipses(*, variant: str = "modified") -> tuple[Ellipse, ...]:
     >>> len(table), table[0].intensity
     (10, 2.0)
     """
-    check_choice(variant, "variant", _VARIANTS)
+    choice(variant, "variant", _VARIANTS)
     return tuple(
         Ellipse(*geometry, intensity=density)
         for geometry, density in zip(_SHEPP_LOGAN_GEOMETRY, _SHEPP_LOGAN_DENSITY[variant])
@@ -189,7 +187,7 @@ def render_ellipses(ellipses: Iterable[Ellipse], shape: int | tuple[int, int], *
     so ``image.sum() * h**2`` approximates the total mass ``sum_k rho_k pi a_k b_k``.
     """
     shape = check_shape(shape)
-    supersample = check_positive_int(supersample, "supersample")
+    supersample = positive_int(supersample, "supersample")
     image = np.zeros(shape)
     for e in _check_ellipses(ellipses):
         found = _coverage(e, shape, supersample)
@@ -344,8 +342,8 @@ def random_ellipses(shape: int | tuple[int, int] = 256, *, seed: int | np.random
     """
     shape = check_shape(shape)
     rng = check_seed(seed)
-    count = check_positive_int(count, "count")
-    supersample = check_positive_int(supersample, "supersample")
+    count = positive_int(count, "count")
+    supersample = positive_int(supersample, "supersample")
     half_x, half_y = extent(shape)
     image = np.zeros(shape)
     for _ in range(count):
@@ -398,12 +396,11 @@ def porous_disk_ellipses(*, seed: int | np.random.Generator = 0, holes: int = 40
     gives the exact sinogram of :func:`porous_disk`.
     """
     rng = check_seed(seed)
-    holes = check_positive_int(holes, "holes", minimum=0)
-    inclusions = check_positive_int(inclusions, "inclusions", minimum=0)
-    radius = check_real(radius, "radius", low=0.0, high=1.0, open_low=True)
-    level = check_real(level, "level", low=0.0, high=1.0, open_low=True)
-    if level >= 1.0:
-        raise ValueError(f"`level` must be < 1 so that inclusions are denser, got {level!r}")
+    holes = nonnegative_int(holes, "holes")
+    inclusions = nonnegative_int(inclusions, "inclusions")
+    radius = number_in(radius, "radius", 0.0, 1.0, low_open=True)
+    # level < 1 keeps the inclusions (1 - level) denser than the matrix.
+    level = number_in(level, "level", 0.0, 1.0, low_open=True, high_open=True)
     n = holes + inclusions
     sizes = np.sort(np.exp(rng.uniform(math.log(0.012), math.log(0.07), n)))[::-1]
     densities = rng.permutation(np.r_[np.full(holes, -level), np.full(inclusions, 1.0 - level)])

@@ -21,67 +21,22 @@ from typing import Any
 
 import numpy as np
 
+from .._validation import image_shape, is_integer, nonnegative_int
+
 # Sub-pixel evaluations per rendering chunk: bounds temporary memory (common practice).
 _CHUNK_POINTS = 1 << 21
 
 
 def check_shape(shape: Any) -> tuple[int, int]:
-    """Validate an image size given as ``n`` (square) or ``(H, W)``."""
-    if _is_int(shape):
-        dims = (shape, shape)
-    elif isinstance(shape, (tuple, list)) and len(shape) == 2 and all(_is_int(s) for s in shape):
-        dims = tuple(shape)
-    else:
-        raise ValueError(f"`shape` must be an int or a pair (H, W) of ints, got {shape!r}")
-    if min(dims) < 1:
-        raise ValueError(f"`shape` must have positive sides, got {shape!r}")
-    return int(dims[0]), int(dims[1])
+    """Validate an image size given as ``n`` (square) or ``(H, W)`` (see :func:`image_shape`)."""
+    return image_shape((shape, shape) if is_integer(shape) else shape, "shape")
 
 
 def check_seed(seed: Any) -> np.random.Generator:
     """Turn a non-negative int (or a numpy Generator) into a Generator."""
     if isinstance(seed, np.random.Generator):
         return seed
-    if not _is_int(seed) or seed < 0:
-        raise ValueError(
-            f"`seed` must be a non-negative int or a numpy.random.Generator, got {seed!r}"
-        )
-    return np.random.default_rng(int(seed))
-
-
-def check_positive_int(value: Any, name: str, *, minimum: int = 1) -> int:
-    """Validate an integer option that must be at least ``minimum``."""
-    if not _is_int(value) or value < minimum:
-        raise ValueError(f"`{name}` must be an int >= {minimum}, got {value!r}")
-    return int(value)
-
-
-def check_real(value: Any, name: str, *, low: float | None = None, high: float | None = None,
-               open_low: bool = False) -> float:
-    """Validate a finite real option, optionally within ``[low, high]`` (or ``(low, high]``)."""
-    if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
-        raise ValueError(f"`{name}` must be a real number, got {value!r}")
-    value = float(value)
-    below = low is not None and (value <= low if open_low else value < low)
-    above = high is not None and value > high
-    if not math.isfinite(value) or below or above:
-        left = "(" if open_low else "["
-        lower = "-inf" if low is None else low
-        interval = f"{left}{lower}, {'inf' if high is None else high}]"
-        raise ValueError(f"`{name}` must be a finite number in {interval}, got {value!r}")
-    return value
-
-
-def check_choice(value: Any, name: str, choices: tuple[str, ...]) -> str:
-    """Validate a string option, listing the valid ones (sorted) on error."""
-    if value not in choices:
-        valid = ", ".join(repr(c) for c in sorted(choices))
-        raise ValueError(f"`{name}` must be one of {valid}; got {value!r}")
-    return value
-
-
-def _is_int(value: Any) -> bool:
-    return isinstance(value, (int, np.integer)) and not isinstance(value, bool)
+    return np.random.default_rng(nonnegative_int(seed, "seed"))
 
 
 def pixel_size(shape: tuple[int, int]) -> float:

@@ -7,7 +7,8 @@ import skimage.color
 import skimage.data
 import skimage.transform
 
-from ._grid import check_choice, check_shape
+from .._validation import choice
+from ._grid import check_shape
 
 # Images whose files ship inside the scikit-image package (no download), by loader name.
 # Colour photographs are converted to grey with skimage.color.rgb2gray.
@@ -62,7 +63,7 @@ def natural_image(name: str, shape: int | tuple[int, int] | None = None) -> np.n
     >>> natural_image("camera", 64).shape
     (64, 64)
     """
-    check_choice(name, "name", natural_image_names())
+    choice(name, "name", natural_image_names())
     raw = getattr(skimage.data, name)()
     if name in _COLOUR:
         image = skimage.color.rgb2gray(raw).astype(np.float64)

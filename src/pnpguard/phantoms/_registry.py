@@ -2,11 +2,11 @@
 
 from __future__ import annotations
 
-import difflib
 from collections.abc import Callable
 
 import numpy as np
 
+from .._validation import unknown_message
 from ._cells import cells
 from ._ellipses import porous_disk, random_ellipses, shepp_logan
 from ._grid import check_seed, check_shape
@@ -78,9 +78,4 @@ def make_phantom(name: str, shape: int | tuple[int, int], *,
     if isinstance(name, str) and name.startswith(_NATURAL_PREFIX) and (
             name[len(_NATURAL_PREFIX):] in natural_image_names()):
         return natural_image(name[len(_NATURAL_PREFIX):], shape)
-    valid = phantom_names()
-    close = difflib.get_close_matches(str(name), valid, n=1)
-    hint = f" Did you mean {close[0]!r}?" if close else ""
-    raise ValueError(
-        f"unknown phantom name {name!r}; valid names are {', '.join(map(repr, valid))}.{hint}"
-    )
+    raise ValueError(unknown_message("phantom name", name, phantom_names()))

@@ -7,7 +7,8 @@ import math
 import numpy as np
 
 from ._fields import SmoothField
-from ._grid import check_positive_int, check_seed, check_shape, extent, render
+from .._validation import positive_int
+from ._grid import check_seed, check_shape, extent, render
 
 
 def piecewise_smooth(shape: int | tuple[int, int] = 256, *, seed: int | np.random.Generator = 0,
@@ -49,8 +50,8 @@ def piecewise_smooth(shape: int | tuple[int, int] = 256, *, seed: int | np.rando
     """
     shape = check_shape(shape)
     rng = check_seed(seed)
-    regions = check_positive_int(regions, "regions")
-    supersample = check_positive_int(supersample, "supersample")
+    regions = positive_int(regions, "regions")
+    supersample = positive_int(supersample, "supersample")
     half_x, half_y = extent(shape)
     sites = rng.uniform((-half_x, -half_y), (half_x, half_y), (regions, 2))
     warp_x, warp_y = SmoothField(rng, 0.3, 1.2), SmoothField(rng, 0.3, 1.2)

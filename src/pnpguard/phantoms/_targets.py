@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from ._grid import check_choice, check_positive_int, check_real, check_shape, render
+from .._validation import choice, int_at_least, number_in, positive_int
+from ._grid import check_shape, render
 
 _PROFILES = ("binary", "sine")
 
@@ -49,10 +50,10 @@ def siemens_star(shape: int | tuple[int, int] = 256, *, spokes: int = 36, radius
     ((64, 64), 0.5)
     """
     shape = check_shape(shape)
-    spokes = check_positive_int(spokes, "spokes", minimum=2)
-    radius = check_real(radius, "radius", low=0.0, high=1.0, open_low=True)
-    check_choice(profile, "profile", _PROFILES)
-    supersample = check_positive_int(supersample, "supersample")
+    spokes = int_at_least(spokes, "spokes", 2)
+    radius = number_in(radius, "radius", 0.0, 1.0, low_open=True)
+    choice(profile, "profile", _PROFILES)
+    supersample = positive_int(supersample, "supersample")
 
     def level(x: np.ndarray, y: np.ndarray) -> np.ndarray:
         wave = np.sin(spokes * np.arctan2(y, x))
