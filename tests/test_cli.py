@@ -177,7 +177,7 @@ def test_check_gives_guarantees_for_the_chosen_algorithms_only(frame, capsys):
     out = capsys.readouterr().out
     assert "guarantee for forward_backward" in out and "guarantee for admm" in out
     assert "douglas_rachford" not in out
-    _usage_error(capsys, ["check", "wavelet", str(frame), "--algorithms", "gd"], "`algorithm` must be one of")
+    _usage_error(capsys, ["check", "wavelet", str(frame), "--algorithms", "gd"], "unknown `algorithm`")
 
 
 def test_demo_verb_runs_the_demo_at_the_requested_size_and_seed(capsys):

@@ -206,7 +206,7 @@ def test_residual_route_for_forward_backward_with_strong_convexity():
 
 
 def test_bad_arguments_are_named():
-    with pytest.raises(ValueError, match=r"\['admm', 'douglas_rachford', 'dr', 'fb', 'forward_backward'\]"):
+    with pytest.raises(ValueError, match=r"valid: 'admm', 'douglas_rachford', 'dr', 'fb', 'forward_backward'"):
         pg.admissible("gradient", _mask_fidelity(), _report(0.5))
     with pytest.raises(ValueError, match="`margin`"):
         pg.admissible("admm", _mask_fidelity(), _report(0.5), margin=2)

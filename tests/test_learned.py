@@ -235,7 +235,7 @@ def test_gain_above_one_drops_every_claim_and_scales_the_network_part():
         mean = image.mean()
         expected = (1 - theta) * image + theta * (mean + gain * (part - mean))
     torch.testing.assert_close(widened(image), expected, rtol=1e-5, atol=1e-6)
-    with pytest.raises(ValueError, match="`gain` must be a number in"):
+    with pytest.raises(ValueError, match="`gain` must be a finite number in"):
         averaged_cnn(sigma, theta=theta, gain=0.9)
     with pytest.raises(ValueError, match="`gain` apply to averaged networks only"):
         load_denoiser(RESIDUAL_WEIGHTS, sigma, gain=1.1)

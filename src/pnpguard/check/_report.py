@@ -13,7 +13,6 @@ from ..denoisers import Denoiser, Fact
 from ._pairs import PairStatistics, pair_statistics
 
 Verdict = Literal["proved", "estimated", "refuted"]
-VERDICTS = ("estimated", "proved", "refuted")
 
 #: Averagedness statistics within this distance of 1 count as "not averaged".
 NOT_AVERAGED_SLACK = 1e-9

@@ -6,6 +6,7 @@ import math
 from dataclasses import dataclass, field, replace
 from typing import Literal
 
+from .._validation import number_in
 from ..check import CheckReport, claimed_constants
 from ..fidelity import LeastSquares
 from ..splitting import ALGORITHMS, algorithm as algorithm_record
@@ -372,11 +373,8 @@ def admissible(
         raise TypeError(f"`fidelity` must be a pnpguard LeastSquares, got {type(fidelity).__name__}")
     if not isinstance(report, CheckReport):
         raise TypeError(f"`report` must be a CheckReport from check_denoiser, got {type(report).__name__}")
-    if isinstance(margin, bool) or not isinstance(margin, (int, float)):
-        raise TypeError(f"`margin` must be a number, got {type(margin).__name__}")
-    if not 0.0 <= margin < 1.0:
-        raise ValueError(f"`margin` must lie in [0, 1), got {margin!r}")
-    c = _constants(fidelity, report, float(margin))
+    margin = number_in(margin, "margin", 0.0, 1.0, high_open=True)
+    c = _constants(fidelity, report, margin)
     if c.lipschitz <= 0.0:
         raise Refused(["the data term is constant (its operator is zero): nothing to reconstruct"])
     found, reasons = _evaluate(record.name, c, report, routes)

@@ -32,13 +32,6 @@ def _image(value: Any, name: str, fidelity: LeastSquares) -> torch.Tensor:
     return tensor.to(dtype=fidelity.y.dtype, device=fidelity.y.device).expand(fidelity.image_shape).clone()
 
 
-def default_start(fidelity: LeastSquares) -> torch.Tensor:
-    """One gradient step of length ``1/L`` from zero: ``A^T y / ||A||^2``."""
-    back = fidelity.op._adjoint(fidelity.y)
-    bound = fidelity.op.norm_bound().value
-    return back / bound**2 if bound > 0 else back
-
-
 class _Run:
     """Shared set-up, guard and loop of the solvers."""
 
@@ -50,7 +43,7 @@ class _Run:
         self.denoiser = as_denoiser(denoiser)
         self.options = o = options
         self.policy = o.policy
-        self.x0 = default_start(fidelity) if o.x0 is None else _image(o.x0, "x0", fidelity)
+        self.x0 = fidelity.start_image() if o.x0 is None else _image(o.x0, "x0", fidelity)
         self.reference = None
         if o.reference is not None:
             self.reference = _image(o.reference, "reference", fidelity)

@@ -3,14 +3,13 @@
 from __future__ import annotations
 
 import dataclasses
-import difflib
 import inspect
-import math
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
 from .._arrays import ArrayLike
+from .._validation import nonnegative_int, nonnegative_number, positive_int, positive_number, unknown_message
 from ..check import DEFAULT_BUDGET, CheckReport
 from ..guarantee import DEFAULT_MARGIN
 from ._monitor import Policy
@@ -20,21 +19,7 @@ Callback = Callable[[IterationState], Any]
 
 
 def _positive_or_none(value: Any, name: str) -> float | None:
-    if value is None:
-        return None
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise TypeError(f"`{name}` must be a number, got {type(value).__name__}")
-    if not (math.isfinite(value) and value > 0):
-        raise ValueError(f"`{name}` must be a positive finite number, got {value!r}")
-    return float(value)
-
-
-def _integer(value: Any, name: str, low: int) -> int:
-    if isinstance(value, bool) or not isinstance(value, int):
-        raise TypeError(f"`{name}` must be an integer, got {type(value).__name__}")
-    if value < low:
-        raise ValueError(f"`{name}` must be at least {low}, got {value!r}")
-    return value
+    return None if value is None else positive_number(value, name)
 
 
 @dataclass(frozen=True)
@@ -112,13 +97,10 @@ class RunOptions:
         set_(self, "step", _positive_or_none(self.step, "step"))
         set_(self, "relaxation", _positive_or_none(self.relaxation, "relaxation"))
         set_(self, "data_range", _positive_or_none(self.data_range, "data_range"))
-        set_(self, "max_iter", _integer(self.max_iter, "max_iter", 1))
-        set_(self, "check_budget", _integer(self.check_budget, "check_budget", 1))
-        set_(self, "seed", _integer(self.seed, "seed", 0))
-        if isinstance(self.tol, bool) or not isinstance(self.tol, (int, float)):
-            raise TypeError(f"`tol` must be a number, got {type(self.tol).__name__}")
-        if not (math.isfinite(self.tol) and self.tol >= 0):
-            raise ValueError(f"`tol` must be a non-negative finite number, got {self.tol!r}")
+        set_(self, "max_iter", positive_int(self.max_iter, "max_iter"))
+        set_(self, "check_budget", positive_int(self.check_budget, "check_budget"))
+        set_(self, "seed", nonnegative_int(self.seed, "seed"))
+        set_(self, "tol", nonnegative_number(self.tol, "tol"))
         if self.report is not None and not isinstance(self.report, CheckReport):
             raise TypeError(f"`report` must be a CheckReport, got {type(self.report).__name__}")
         if self.callback is not None and not callable(self.callback):
@@ -137,9 +119,7 @@ class RunOptions:
         known = [f.name for f in dataclasses.fields(cls)]
         unknown = sorted(set(keywords) - set(known))
         if unknown:
-            close = difflib.get_close_matches(unknown[0], known, n=1)
-            hint = f"; did you mean {close[0]!r}?" if close else ""
-            raise TypeError(f"unexpected keyword argument {unknown[0]!r}; valid: {sorted(known)}{hint}")
+            raise TypeError(unknown_message("keyword argument", unknown[0], known))
         return cls(**keywords)
 
 

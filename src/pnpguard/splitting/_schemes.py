@@ -58,7 +58,7 @@ class ForwardBackward:
 
     def denoiser_input(self, v: torch.Tensor) -> torch.Tensor:
         """What the denoiser is applied to at ``v``: ``v - step grad f(v)``."""
-        return v - self.step * self.fidelity._grad(v)
+        return v - self.step * self.fidelity.apply_grad(v)
 
 
 @dataclass(frozen=True)
@@ -71,7 +71,7 @@ class DouglasRachford:
 
     def __call__(self, v: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
         denoised = self.denoiser.apply(v)
-        data_step = self.fidelity._prox(2.0 * denoised - v, self.step)
+        data_step = self.fidelity.apply_prox(2.0 * denoised - v, self.step)
         return v + data_step - denoised, data_step
 
     def denoiser_input(self, v: torch.Tensor) -> torch.Tensor:

@@ -14,6 +14,7 @@ from dataclasses import dataclass
 
 import torch
 
+from .._validation import choice
 from ..fidelity import LeastSquares
 from ._schemes import DouglasRachford, ForwardBackward, Scheme
 
@@ -26,7 +27,7 @@ def _from_image(fidelity: LeastSquares, x0: torch.Tensor, step: float) -> torch.
 
 
 def _from_data_prox(fidelity: LeastSquares, x0: torch.Tensor, step: float) -> torch.Tensor:
-    return fidelity._prox(x0, step)
+    return fidelity.apply_prox(x0, step)
 
 
 @dataclass(frozen=True)
@@ -123,8 +124,5 @@ def algorithm(key: str | Algorithm) -> Algorithm:
     """
     if isinstance(key, Algorithm):
         return key
-    for record in ALGORITHMS.values():
-        if key in (record.name, record.short):
-            return record
-    valid = sorted({*ALGORITHMS, *(record.short for record in ALGORITHMS.values())})
-    raise ValueError(f"`algorithm` must be one of {valid}, got {key!r}")
+    names = {**{record.short: record for record in ALGORITHMS.values()}, **ALGORITHMS}
+    return names[choice(key, "algorithm", names)]
