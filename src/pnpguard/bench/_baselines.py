@@ -52,10 +52,12 @@ class BaselineRun:
         The reconstruction, float64 ``(H, W)``.
     iterations : int
         Iterations of the method (0 for direct formulas).
-    residuals : numpy.ndarray
-        Per-iteration relative change ``||x_{k+1} - x_k|| / ||x_{k+1}||`` for
-        iterative methods (the conjugate-gradient relative residual for
-        Tikhonov), empty for direct formulas.
+    relative_residuals : numpy.ndarray
+        Relative residuals of the method's own iteration, as everywhere in the
+        library (a residual divided by the size of what it is measured on):
+        the relative change ``||x_{k+1} - x_k|| / ||x_{k+1}||`` for the TV
+        primal-dual iteration, the conjugate-gradient relative residual for
+        Tikhonov; empty for direct formulas.
     converged : bool
         True when the method met its stopping rule (always True for direct
         formulas).
@@ -63,7 +65,7 @@ class BaselineRun:
 
     x: np.ndarray = field(repr=False)
     iterations: int
-    residuals: np.ndarray = field(repr=False)
+    relative_residuals: np.ndarray = field(repr=False)
     converged: bool
 
 
@@ -164,7 +166,7 @@ def tv_reconstruction(
     p = torch.zeros_like(y)
     q_rows, q_cols = torch.zeros_like(x), torch.zeros_like(x)
     tau, sigma = 0.99 * TV_STEP_RATIO / 3.0, 0.99 / (3.0 * TV_STEP_RATIO)
-    residuals = []
+    changes = []
     converged = False
     for _ in range(max_iter):
         # prox of sigma F1*, F1(z) = ||z - y'||^2 / 2: (v - sigma y') / (1 + sigma).
@@ -177,12 +179,12 @@ def tv_reconstruction(
         x_new = x - tau * (op.apply_adjoint(p) / norm + gradient_adjoint(q_rows, q_cols))
         x_bar = 2.0 * x_new - x
         change = float(torch.linalg.vector_norm(x_new - x)) / max(float(torch.linalg.vector_norm(x_new)), 1e-300)
-        residuals.append(change)
+        changes.append(change)
         x = x_new
         if change <= tol:
             converged = True
             break
-    return BaselineRun(x.numpy(), len(residuals), np.asarray(residuals), converged)
+    return BaselineRun(x.numpy(), len(changes), np.asarray(changes), converged)
 
 
 # --------------------------------------------------------- family-specific

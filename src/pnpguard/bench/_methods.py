@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import math
 import time
-from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -19,17 +18,11 @@ import numpy as np
 from .._validation import unknown_message
 from ..check import CheckReport, check_denoiser
 from ..guarantee import Guarantee, Refused
-from ..solvers import Reconstruction, admm, douglas_rachford, forward_backward
+from ..solvers import reconstruct
+from ..splitting import ALGORITHMS
 from . import _baselines as bl
 from ._registry import get_denoiser, shipped_denoisers
 from ._tasks import Problem
-
-#: PnP algorithms with their short names in method names (``"fb/wavelet"``).
-ALGORITHMS: dict[str, Callable[..., Reconstruction]] = {
-    "fb": forward_backward,
-    "dr": douglas_rachford,
-    "admm": admm,
-}
 
 #: Classical baselines: name -> (families it applies to, tuned parameter names).
 BASELINES: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
@@ -53,7 +46,8 @@ class Method:
         name otherwise.
     kind : {"pnp", "baseline"}
     algorithm : str or None
-        ``"fb"``, ``"dr"`` or ``"admm"`` for PnP.
+        For PnP, the algorithm's short name (:data:`pnpguard.splitting.ALGORITHMS`:
+        ``"fb"``, ``"dr"``, ``"admm"``).
     denoiser : str or None
         Registry name of the shipped denoiser for PnP.
     """
@@ -70,9 +64,9 @@ def methods_for(family: str) -> tuple[Method, ...]:
         Method(name, "baseline") for name, (families, _) in BASELINES.items() if family in families
     )
     pnp = tuple(
-        Method(f"{algorithm}/{entry.name}", "pnp", algorithm, entry.name)
+        Method(f"{record.short}/{entry.name}", "pnp", record.short, entry.name)
         for entry in shipped_denoisers()
-        for algorithm in ALGORITHMS
+        for record in ALGORITHMS.values()
     )
     return baselines + pnp
 
@@ -89,9 +83,10 @@ class Outcome:
         The reconstruction (None when refused).
     iterations : int
     converged : bool
-    residuals : numpy.ndarray
-        Relative fixed-point residuals (PnP) or relative changes (iterative
-        baselines) per iteration.
+    relative_residuals : numpy.ndarray
+        Relative residuals per iteration, as in :class:`pnpguard.Reconstruction`:
+        the relative fixed-point residual ``||T v - v|| / ||v||`` (PnP), or
+        the baseline's own relative residual (see ``BaselineRun``).
     seconds : float
         Wall time of the method, including a denoiser check it ran.
     check_seconds : float
@@ -112,7 +107,7 @@ class Outcome:
     x: np.ndarray | None = field(repr=False)
     iterations: int
     converged: bool
-    residuals: np.ndarray = field(repr=False)
+    relative_residuals: np.ndarray = field(repr=False)
     seconds: float
     check_seconds: float
     parameters: dict[str, Any]
@@ -145,7 +140,7 @@ def run_baseline(name: str, problem: Problem, parameters: dict[str, Any]) -> Out
         x=run.x,
         iterations=run.iterations,
         converged=run.converged,
-        residuals=run.residuals,
+        relative_residuals=run.relative_residuals,
         seconds=time.perf_counter() - start,
         check_seconds=0.0,
         parameters=dict(parameters),
@@ -197,17 +192,16 @@ def run_pnp(
     """
     start = time.perf_counter()
     denoiser, report, check_seconds = denoisers.get(method.denoiser, strength)
-    solver = ALGORITHMS[method.algorithm]
     parameters: dict[str, Any] = {"strength": strength}
     try:
-        result = solver(problem.fidelity, denoiser, report=report, max_iter=max_iter, tol=tol)
+        result = reconstruct(method.algorithm, problem.fidelity, denoiser, report=report, max_iter=max_iter, tol=tol)
     except Refused as refusal:
         return Outcome(
             status="refused",
             x=None,
             iterations=0,
             converged=False,
-            residuals=np.zeros(0),
+            relative_residuals=np.zeros(0),
             seconds=time.perf_counter() - start,
             check_seconds=check_seconds,
             parameters=parameters,
@@ -221,7 +215,7 @@ def run_pnp(
         x=np.asarray(result.x, dtype=np.float64),
         iterations=result.iterations,
         converged=result.converged,
-        residuals=np.asarray(result.relative_residuals),
+        relative_residuals=np.asarray(result.relative_residuals),
         seconds=time.perf_counter() - start,
         check_seconds=check_seconds,
         parameters=parameters,
@@ -234,4 +228,4 @@ def run_pnp(
 
 def final_residual(outcome: Outcome) -> float:
     """The last relative residual, NaN when there is none."""
-    return float(outcome.residuals[-1]) if outcome.residuals.size else math.nan
+    return float(outcome.relative_residuals[-1]) if outcome.relative_residuals.size else math.nan

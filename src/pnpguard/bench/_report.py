@@ -16,8 +16,16 @@ from ._tasks import FAMILIES
 #: baseline by at least this many dB, averaged over the tasks of each family.
 GOAL_DB = 1.0
 
-#: Residual curves: colour per denoiser, line style per algorithm.
-_LINE_STYLES = {"fb": "-", "dr": "--", "admm": ":"}
+#: Residual curves: colour per denoiser, line style per algorithm (in table order).
+_LINE_STYLES = ("-", "--", ":", "-.")
+
+
+def _line_style(short: str) -> str:
+    """The line style of an algorithm's curves: one per algorithm of the table, in order."""
+    from ..splitting import ALGORITHMS
+
+    order = [record.short for record in ALGORITHMS.values()]
+    return _LINE_STYLES[order.index(short) % len(_LINE_STYLES)] if short in order else "-"
 
 
 @dataclass(frozen=True)
@@ -260,7 +268,7 @@ def _figures(document: dict[str, Any], arrays: dict[str, np.ndarray], out: Path)
                     np.maximum(values, 1e-300),
                     lw=1.2,
                     color=f"C{denoisers.index(record['denoiser']) % 10}",
-                    ls=_LINE_STYLES.get(record["algorithm"], "-"),
+                    ls=_line_style(record["algorithm"]),
                     label=record["method"],
                 )
         if axis.lines:

@@ -173,7 +173,7 @@ def run_suite(
                 records.append(_record(task.name, method, outcome, problem.truth))
                 if outcome.x is not None:
                     arrays[f"{task.name}/{method.name}"] = outcome.x
-                    arrays[f"{task.name}/{method.name}/residuals"] = outcome.residuals
+                    arrays[f"{task.name}/{method.name}/residuals"] = outcome.relative_residuals
                 if bar is not None:
                     bar.update(1)
             tasks.append(

@@ -1,6 +1,6 @@
 """Guarded PnP solvers with a fixed-point residual monitor."""
 
-from ._algorithms import admm, douglas_rachford, forward_backward
+from ._algorithms import admm, douglas_rachford, forward_backward, reconstruct
 from ._monitor import Flag, Policy
 from ._options import RunOptions
 from ._plots import plot_run
@@ -16,4 +16,5 @@ __all__ = [
     "douglas_rachford",
     "forward_backward",
     "plot_run",
+    "reconstruct",
 ]

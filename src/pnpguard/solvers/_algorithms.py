@@ -16,7 +16,8 @@ from ..denoisers import Denoiser, as_denoiser
 from ..fidelity import LeastSquares
 from ..guarantee import Guarantee, admissible
 from ..metrics import psnr, ssim
-from ..splitting import Algorithm, algorithm as algorithm_record
+from ..splitting import Algorithm
+from ..splitting import algorithm as algorithm_record
 from ._monitor import Flag, Monitor, norm
 from ._options import RunOptions, solver_signature
 from ._result import IterationState, Reconstruction
@@ -273,8 +274,47 @@ def _progress(progress: Any, total: int, name: str):
     return tqdm(total=total, desc=name, leave=False)
 
 
-def _solve(name: str, fidelity: LeastSquares, denoiser: Any, keywords: dict[str, Any]) -> Reconstruction:
-    return _Run(algorithm_record(name), fidelity, denoiser, RunOptions.from_keywords(keywords)).run()
+def reconstruct(algorithm: str | Algorithm, fidelity: LeastSquares, denoiser: Any, **options: Any) -> Reconstruction:
+    """Guarded PnP reconstruction with any algorithm of the table.
+
+    The one entry point behind :func:`forward_backward`,
+    :func:`douglas_rachford` and :func:`admm`; a new algorithm added to
+    :data:`pnpguard.splitting.ALGORITHMS` runs through it with no further code.
+
+    Parameters
+    ----------
+    algorithm : str or Algorithm
+        API name or short name (``"forward_backward"`` / ``"fb"``, ...).
+    fidelity : LeastSquares
+        Data term ``f``.
+    denoiser : Denoiser, callable or torch.nn.Module
+        Anything :func:`pnpguard.as_denoiser` accepts.
+    **options
+        The keywords of :class:`RunOptions`, validated once.
+
+    Returns
+    -------
+    Reconstruction
+
+    Raises
+    ------
+    Refused
+        On a guarded run that no theorem covers, or parameters outside the
+        admissible set.
+    TypeError, ValueError
+        For an unknown algorithm or keyword, or an invalid option.
+
+    Examples
+    --------
+    >>> import numpy as np, pnpguard as pg
+    >>> frame = pg.phantoms.cells(32, seed=0)
+    >>> blur = pg.Convolution(pg.gaussian_psf(5, 1.0), frame.shape)
+    >>> fidelity = pg.LeastSquares(blur, blur(frame), sigma=0.01)
+    >>> result = pg.reconstruct("fb", fidelity, pg.WaveletShrinkage(sigma=0.01), max_iter=50)
+    >>> result.algorithm, result.guarantee.status
+    ('forward_backward', 'proved')
+    """
+    return _Run(algorithm_record(algorithm), fidelity, denoiser, RunOptions.from_keywords(options)).run()
 
 
 def forward_backward(fidelity: LeastSquares, denoiser: Any, **options: Any) -> Reconstruction:
@@ -315,7 +355,7 @@ def forward_backward(fidelity: LeastSquares, denoiser: Any, **options: Any) -> R
        algorithm for regularized image reconstruction", IEEE Trans. Comput.
        Imaging 5(3) (2019) 395-408, doi:10.1109/TCI.2019.2893568.
     """
-    return _solve("forward_backward", fidelity, denoiser, options)
+    return reconstruct("forward_backward", fidelity, denoiser, **options)
 
 
 def douglas_rachford(fidelity: LeastSquares, denoiser: Any, **options: Any) -> Reconstruction:
@@ -354,7 +394,7 @@ def douglas_rachford(fidelity: LeastSquares, denoiser: Any, **options: Any) -> R
     .. [2] P. Giselsson and S. Boyd, IEEE Trans. Autom. Control 62(2) (2017)
        532-544, doi:10.1109/TAC.2016.2564160.
     """
-    return _solve("douglas_rachford", fidelity, denoiser, options)
+    return reconstruct("douglas_rachford", fidelity, denoiser, **options)
 
 
 def admm(fidelity: LeastSquares, denoiser: Any, **options: Any) -> Reconstruction:
@@ -398,9 +438,10 @@ def admm(fidelity: LeastSquares, denoiser: Any, **options: Any) -> Reconstructio
        restoration: fixed-point convergence and applications", IEEE Trans.
        Comput. Imaging 3(1) (2017) 84-98, doi:10.1109/TCI.2016.2629286.
     """
-    return _solve("admm", fidelity, denoiser, options)
+    return reconstruct("admm", fidelity, denoiser, **options)
 
 
 # help() and inspect.signature show every option by name (they live in RunOptions).
 for _solver in (forward_backward, douglas_rachford, admm):
     _solver.__signature__ = solver_signature()  # type: ignore[attr-defined]
+reconstruct.__signature__ = solver_signature("algorithm")  # type: ignore[attr-defined]

@@ -123,11 +123,11 @@ class RunOptions:
         return cls(**keywords)
 
 
-def solver_signature() -> inspect.Signature:
-    """``(fidelity, denoiser, *, <every RunOptions field with its default>)``, for help text."""
+def solver_signature(*leading: str) -> inspect.Signature:
+    """``(*leading, fidelity, denoiser, *, <every RunOptions field with its default>)``, for help text."""
     parameters = [
-        inspect.Parameter("fidelity", inspect.Parameter.POSITIONAL_OR_KEYWORD),
-        inspect.Parameter("denoiser", inspect.Parameter.POSITIONAL_OR_KEYWORD),
+        inspect.Parameter(name, inspect.Parameter.POSITIONAL_OR_KEYWORD)
+        for name in (*leading, "fidelity", "denoiser")
     ]
     parameters += [
         inspect.Parameter(f.name, inspect.Parameter.KEYWORD_ONLY, default=f.default, annotation=f.type)
