@@ -41,8 +41,8 @@ from pnpguard.learned._data import (
     bundled_image,
     default_training_images,
 )
-from pnpguard.learned._evaluate import held_out_table
 from pnpguard.learned._denoisers import load_network
+from pnpguard.learned._evaluate import held_out_table
 from pnpguard.learned._training import train_denoiser
 
 WEIGHTS = Path(__file__).resolve().parents[1] / "src" / "pnpguard" / "learned" / "weights"

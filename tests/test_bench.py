@@ -6,19 +6,19 @@ import copy
 import importlib.metadata
 import json
 import math
-import tomllib
 from pathlib import Path
 
 import numpy as np
 import pytest
 import skimage.metrics
 import skimage.restoration
+import tomllib
 import torch
 
 from pnpguard import bench
 from pnpguard._version import SOURCE_VERSION
-from pnpguard.bench import _results as bench_results
 from pnpguard.bench import _baselines as bl
+from pnpguard.bench import _results as bench_results
 from pnpguard.check import check_denoiser
 from pnpguard.learned._weights import read_weights
 from pnpguard.operators import Convolution, Decimation, PixelMask, motion_psf

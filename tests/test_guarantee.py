@@ -309,3 +309,23 @@ def test_zero_strong_convexity_up_to_rounding_is_printed_as_zero():
         pg.admissible("douglas_rachford", fidelity, report)
     text = str(caught.value)
     assert "mu = 0" in text and "e-1" not in text
+
+
+def test_lower_strength_is_suggested_only_where_a_lower_strength_exists():
+    from dataclasses import replace
+
+    refused = _report(1.5, lipschitz=1.2, residual=2.0, verdict="refuted", refuted="nonexpansiveness")
+    cases = [(None, 0.0, False), (0.02, 0.0, True), (0.02, 0.02, False)]  # callable; TV-like; network at its floor
+    for sigma, lowest, expected in cases:
+        with pytest.raises(pg.Refused) as caught:
+            pg.admissible("forward_backward", _mask_fidelity(), replace(refused, sigma=sigma, lowest_sigma=lowest))
+        assert any("lower the denoiser strength" in s for s in caught.value.suggestions) == expected
+
+
+def test_estimated_constants_are_labelled_with_the_margin():
+    report = _report(1.0, lipschitz=1.1, residual=3.0, verdict="estimated")
+    with pytest.raises(pg.Refused) as caught:
+        pg.admissible("forward_backward", _blur_fidelity(), report)
+    text = str(caught.value)
+    assert "5 % safety margin applied: 1.05" in text
+    assert "Lipschitz(D - I) = 3.15 (estimate incl. 5 % margin)" in text

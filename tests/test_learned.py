@@ -24,12 +24,12 @@ from pnpguard.learned import (
     residual_cnn,
     train_denoiser,
 )
+from pnpguard.learned._architectures import BY_CLASS_NAME, BY_NAME
 from pnpguard.learned._averaged import dct_filters, reflected_shrink
 from pnpguard.learned._data import PatchSampler, bundled_image
 from pnpguard.learned._denoisers import AVERAGED_WEIGHTS, RESIDUAL_WEIGHTS, WEIGHTS_DIR
 from pnpguard.learned._evaluate import held_out_table, noisy_copy
 from pnpguard.learned._lipschitz import circular_conv, circular_conv_adjoint
-from pnpguard.learned._architectures import BY_CLASS_NAME, BY_NAME
 from pnpguard.learned._training import _architecture_of
 from pnpguard.learned._weights import read_weights, save_weights
 

@@ -31,7 +31,6 @@ from .metrics import psnr
 from .operators import Convolution, gaussian_psf
 from .solvers import Reconstruction, admm, forward_backward
 
-
 #: Default side of the frame in pixels.
 DEFAULT_SIZE = 128
 #: Smallest side: the 9 x 9 point-spread function with room around it.

@@ -17,6 +17,7 @@ Examples
 'super-resolution'
 """
 
+from .._caution import CAUTION
 from ._compare import (
     ASPECTS,
     DEFAULT_ASPECTS,
@@ -36,7 +37,6 @@ from ._report import (
     ranking,
     write_report,
 )
-from .._caution import CAUTION
 from ._results import BenchmarkRun, load_arrays, load_results
 from ._runner import run_suite
 from ._tasks import (

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import math
 import time
-from dataclasses import replace
 from collections.abc import Sequence
+from dataclasses import replace
 from typing import Any
 
 import torch

@@ -9,7 +9,8 @@ from typing import Literal
 from .._validation import number_in
 from ..check import CheckReport, claimed_constants
 from ..fidelity import LeastSquares
-from ..splitting import ALGORITHMS, algorithm as algorithm_record
+from ..splitting import ALGORITHMS
+from ..splitting import algorithm as algorithm_record
 from ._refused import Refused
 from ._routes import ROUTES, Constants, MapKind, Route, Window, find_route, routes_for, theta_limit
 

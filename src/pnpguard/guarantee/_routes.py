@@ -131,6 +131,12 @@ class Constants:
     refutation: str
     estimates: tuple[float, float]
 
+    def quoted(self, value: float) -> str:
+        """A denoiser constant as printed in reasons, marked when it carries the safety margin."""
+        if self.basis == "estimated" and self.margin > 0:
+            return f"{value:.4g} (estimate incl. {100 * self.margin:.0f} % margin)"
+        return f"{value:.4g} ({self.basis})"
+
 
 # ------------------------------------------------------------------ helpers
 def not_averaged_reason(c: Constants) -> str:
@@ -147,7 +153,7 @@ def not_averaged_reason(c: Constants) -> str:
             f"denoiser theta = {c.estimates[0]:.4g} (estimate; {100 * c.margin:.0f} % safety margin "
             f"applied: {c.theta:.4g}) is not below 1"
         )
-    return f"denoiser theta = {c.theta:.4g} ({c.basis}) is not below 1"
+    return f"denoiser theta = {c.quoted(c.theta)} is not below 1"
 
 
 def theta_limit(mu: float, lipschitz: float) -> float:
@@ -194,7 +200,7 @@ def _fb_residual_applies(c: Constants, algorithm: str) -> Window | str | None:
     window = th.forward_backward_contraction_window(c.residual_lipschitz, mu, lip)
     if window is None:
         return (
-            f"residual route (Ryu et al. 2019): needs Lipschitz(D - I) = {c.residual_lipschitz:.4g} < "
+            f"residual route (Ryu et al. 2019): needs Lipschitz(D - I) = {c.quoted(c.residual_lipschitz)} < "
             f"2 mu / (L - mu) = {2 * mu / (lip - mu) if lip > mu else math.inf:.4g}"
         )
     step = min(max(2.0 / (lip + mu), window[0] * 1.001), window[1] * 0.999)
@@ -225,7 +231,7 @@ def _dr_firm_applies(c: Constants, algorithm: str) -> Window | str | None:
     if c.strong_convexity <= 0:
         return (
             f"{algorithm} needs a firmly nonexpansive denoiser (theta <= 1/2) or a strongly convex "
-            f"data term; theta = {c.theta:.4g} and the forward model has a null space or no "
+            f"data term; theta = {c.quoted(c.theta)} and the forward model has a null space or no "
             "known lower singular value (mu = 0)"
         )
     return None
@@ -254,7 +260,7 @@ def _dr_strongly_convex_applies(c: Constants, algorithm: str) -> Window | str | 
     if window is None:
         return (
             f"strongly convex route: no gamma makes (4 theta - 1) delta(gamma) < 1 with "
-            f"theta = {c.theta:.4g}, mu / L = {c.strong_convexity / c.lipschitz:.4g}; it needs theta < "
+            f"theta = {c.quoted(c.theta)}, mu / L = {c.strong_convexity / c.lipschitz:.4g}; it needs theta < "
             f"{theta_limit(c.strong_convexity, c.lipschitz):.4g}"
         )
     return window

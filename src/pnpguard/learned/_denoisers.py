@@ -12,7 +12,7 @@ from pathlib import Path
 import torch
 from torch import nn
 
-from .._validation import number, number_in, positive_number
+from .._validation import nonnegative_number, number, number_in, positive_number
 from ..denoisers._base import Denoiser
 from ..denoisers._facts import ClaimLike, Fact, as_claim
 from ._architectures import BY_CLASS_NAME
@@ -54,6 +54,8 @@ class LearnedDenoiser(Denoiser):
         Extra keyword arguments of the call (for example ``{"theta": 0.9}``).
     facts : iterable of Fact, optional
         What is known about the map.
+    lowest_sigma : float, optional
+        Lowest noise level the network accepts (its trained range starts there).
     """
 
     def __init__(
@@ -64,6 +66,7 @@ class LearnedDenoiser(Denoiser):
         sigma: float,
         options: dict[str, float] | None = None,
         facts: Iterable[Fact] = (),
+        lowest_sigma: float = 0.0,
     ) -> None:
         if not isinstance(module, nn.Module):
             raise TypeError(f"`module` must be a torch.nn.Module, got {type(module).__name__}")
@@ -73,6 +76,7 @@ class LearnedDenoiser(Denoiser):
             parameter.requires_grad_(False)
         self._options = dict(options or {})
         self._copies: dict[tuple[torch.dtype, torch.device], nn.Module] = {}
+        self.lowest_sigma = nonnegative_number(lowest_sigma, "lowest_sigma")
 
     @property
     def module(self) -> nn.Module:
@@ -172,6 +176,10 @@ def _check_trained_sigma(sigma: float, training: dict) -> float:
     return sigma
 
 
+def _lowest_trained_sigma(training: dict) -> float:
+    return float(training.get("noise_range", (0.0, math.inf))[0])
+
+
 def residual_cnn(sigma: float, *, weights: str | Path | None = None) -> LearnedDenoiser:
     r"""The shipped residual CNN denoiser, set to noise level ``sigma``.
 
@@ -220,7 +228,7 @@ def residual_cnn(sigma: float, *, weights: str | Path | None = None) -> LearnedD
     path = Path(weights) if weights is not None else RESIDUAL_WEIGHTS
     model, training = _load(path, _RESIDUAL_FAMILY)
     sigma = _check_trained_sigma(sigma, training)
-    return LearnedDenoiser(model, name="residual CNN", sigma=sigma)
+    return LearnedDenoiser(model, name="residual CNN", sigma=sigma, lowest_sigma=_lowest_trained_sigma(training))
 
 
 def averaged_cnn(
@@ -312,12 +320,14 @@ def averaged_cnn(
             sigma=sigma,
             options={"theta": float(theta)},
             facts=averaged_facts(model, float(theta)),
+            lowest_sigma=_lowest_trained_sigma(training),
         )
     return LearnedDenoiser(
         model,
         name=f"widened CNN (theta={theta:g}, gain={gain:g})",
         sigma=sigma,
         options={"theta": float(theta), "gain": float(gain)},
+        lowest_sigma=_lowest_trained_sigma(training),
     )
 
 

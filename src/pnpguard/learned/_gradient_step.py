@@ -104,5 +104,6 @@ class GradientStepNetwork(nn.Module):
 
     def forward(self, x: torch.Tensor, sigma: torch.Tensor | float) -> torch.Tensor:
         """``D(x) = x - grad g(x)``; differentiable in training mode."""
-        _, gradient = self.potential_and_gradient(x, sigma, create_graph=self.training or torch.is_grad_enabled() and x.requires_grad)
+        differentiable = self.training or (torch.is_grad_enabled() and x.requires_grad)
+        _, gradient = self.potential_and_gradient(x, sigma, create_graph=differentiable)
         return x - gradient

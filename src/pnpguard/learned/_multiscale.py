@@ -11,7 +11,6 @@ from torch import nn
 from .._validation import choice, positive_int
 from ._residual import noise_level_map, subtract_predicted_noise
 
-
 #: Sharpness ``b`` of the softplus activation ``log(1 + exp(b z)) / b``: within
 #: ``log(2) / b`` of ReLU, so a trained ReLU network keeps its quality when its
 #: activations are swapped (measured: training loss 1.04e-3 against 0.98e-3).

@@ -10,7 +10,6 @@ from torch import nn
 
 from .._validation import choice, int_at_least, positive_int
 
-
 #: Initial weight schemes of :class:`ResidualCNN`.
 INITIALISATIONS = ("he", "torch-default")
 

@@ -12,8 +12,8 @@ import numpy as np
 import torch
 from torch import nn
 
-from ..metrics import _psnr
 from .._validation import choice, positive_int, positive_number
+from ..metrics import _psnr
 from ._architectures import BY_CLASS_NAME, BY_NAME
 from ._averaged import AveragedCNN
 from ._data import PatchSampler

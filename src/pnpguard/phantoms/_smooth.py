@@ -6,8 +6,8 @@ import math
 
 import numpy as np
 
-from ._fields import SmoothField
 from .._validation import positive_int
+from ._fields import SmoothField
 from ._grid import check_seed, check_shape, extent, render
 
 
