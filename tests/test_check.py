@@ -204,14 +204,14 @@ def test_seed_reproduces_and_budget_is_respected():
 
 
 @pytest.mark.parametrize(
-    "kwargs, message",
+    "kwargs, error, message",
     [
-        ({"budget": 5}, "`budget` must be an integer >= 20"),
-        ({"budget": 20.5}, "`budget`"),
+        ({"budget": 5}, ValueError, "`budget` must be an integer >= 20"),
+        ({"budget": 20.5}, TypeError, "`budget`"),  # not an integer: the shared rule of _validation
     ],
 )
-def test_bad_arguments(kwargs, message):
-    with pytest.raises(ValueError, match=message):
+def test_bad_arguments(kwargs, error, message):
+    with pytest.raises(error, match=message):
         pg.check_denoiser(lambda z: z, SAMPLE, **kwargs)
 
 

@@ -11,6 +11,7 @@ from typing import Any
 import torch
 
 from .._arrays import ArrayKind, to_tensor
+from .._validation import int_at_least
 from ..denoisers import Denoiser, as_denoiser
 from ._report import NOT_AVERAGED_SLACK, CheckReport, Witness
 from ._search import QUANTITIES, SCALES, BudgetExhausted, PairSearch
@@ -113,8 +114,7 @@ def check_denoiser(
     >>> report.verdict, round(report.theta, 6)
     ('estimated', 0.25)
     """
-    if isinstance(budget, bool) or not isinstance(budget, int) or budget < MIN_BUDGET:
-        raise ValueError(f"`budget` must be an integer >= {MIN_BUDGET} denoiser calls, got {budget!r}")
+    budget = int_at_least(budget, "budget", MIN_BUDGET)
     denoiser = as_denoiser(denoiser)
     samples, kind = _split_samples(sample)
     if len(samples) > budget // 10:

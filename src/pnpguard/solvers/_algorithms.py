@@ -365,26 +365,8 @@ def douglas_rachford(fidelity: LeastSquares, denoiser: Any, **options: Any) -> R
     estimate is ``prox_{gamma f}(2 D z - z)``. ``step`` is the prox parameter
     ``gamma``; ``x0`` initialises ``z``.
 
-    Parameters
-    ----------
-    fidelity : LeastSquares
-        Data term ``f``.
-    denoiser : Denoiser, callable or torch.nn.Module
-        Anything :func:`pnpguard.as_denoiser` accepts.
-    **options
-        The keywords of :class:`RunOptions`, validated once.
-
-    Returns
-    -------
-    Reconstruction
-
-    Raises
-    ------
-    Refused
-        On a guarded run that no theorem covers, or parameters outside the
-        admissible set.
-    TypeError, ValueError
-        For an unknown keyword or an invalid option.
+    Parameters, return value and errors are those of :func:`reconstruct`
+    (``**options``: the keywords of :class:`RunOptions`).
 
     References
     ----------
@@ -407,26 +389,8 @@ def admm(fidelity: LeastSquares, denoiser: Any, **options: Any) -> Reconstructio
     over-relaxed ADMM ``x^ = lam x+ + (1 - lam) z`` in place of ``x+`` in the
     ``z`` and ``u`` updates. The estimate is ``x``; ``step`` is ``gamma``.
 
-    Parameters
-    ----------
-    fidelity : LeastSquares
-        Data term ``f``.
-    denoiser : Denoiser, callable or torch.nn.Module
-        Anything :func:`pnpguard.as_denoiser` accepts.
-    **options
-        The keywords of :class:`RunOptions`, validated once.
-
-    Returns
-    -------
-    Reconstruction
-
-    Raises
-    ------
-    Refused
-        On a guarded run that no theorem covers, or parameters outside the
-        admissible set.
-    TypeError, ValueError
-        For an unknown keyword or an invalid option.
+    Parameters, return value and errors are those of :func:`reconstruct`
+    (``**options``: the keywords of :class:`RunOptions`).
 
     References
     ----------

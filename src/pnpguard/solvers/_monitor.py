@@ -26,6 +26,7 @@ from typing import Literal
 
 import torch
 
+from .._validation import choice, positive_int, positive_number
 from ..check._pairs import ROUNDING_FACTOR, averagedness_statistic
 
 Action = Literal["warn", "stop", "back_off"]
@@ -73,18 +74,11 @@ class Policy:
 
     def __post_init__(self) -> None:
         for kind in FLAG_KINDS:
-            if getattr(self, kind) not in ACTIONS:
-                raise ValueError(
-                    f"`{kind}` action must be one of {sorted(ACTIONS)}, got {getattr(self, kind)!r}"
-                )
+            choice(getattr(self, kind), kind, ACTIONS)
         for name in ("increase_rtol", "stall_drop", "blowup_ratio"):
-            value = getattr(self, name)
-            if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
-                raise ValueError(f"`{name}` must be a positive number, got {value!r}")
+            positive_number(getattr(self, name), name)
         for name in ("stall_window", "max_back_offs"):
-            value = getattr(self, name)
-            if isinstance(value, bool) or not isinstance(value, int) or value < 1:
-                raise ValueError(f"`{name}` must be a positive integer, got {value!r}")
+            positive_int(getattr(self, name), name)
 
 
 @dataclass(frozen=True)
