@@ -169,7 +169,7 @@ def test_list_names(capsys):
     assert "ct-limited-120deg" in capsys.readouterr().out
     assert main(["list", "algorithms"]) == 0  # read from the algorithm and route tables
     out = capsys.readouterr().out
-    assert "douglas_rachford  dr" in out and "firmly nonexpansive" in out
+    assert "douglas_rachford" in out and "firmly nonexpansive" in out and "proximal_gradient  pgd" in out
 
 
 def test_check_gives_guarantees_for_the_chosen_algorithms_only(frame, capsys):

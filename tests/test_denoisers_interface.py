@@ -223,7 +223,7 @@ def test_user_claims_are_stored_unverified():
 
 
 def test_fact_validation_and_text():
-    with pytest.raises(ValueError, match="valid: 'averaged', 'linear_symmetric', 'nonexpansive', 'proximal'"):
+    with pytest.raises(ValueError, match="valid: 'averaged', 'gradient_step', 'linear_symmetric', 'nonexpansive', 'proximal'"):
         Fact("firm")
     with pytest.raises(ValueError, match="needs `theta`"):
         Fact("averaged")

@@ -190,6 +190,7 @@ def check_denoiser(
         method=method,
         claims=claims,
         notes=tuple(notes),
+        facts=tuple(f for f in denoiser.facts if f.verified),  # constant-free structure (gradient step)
         **strength,
     )
 

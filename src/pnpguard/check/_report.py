@@ -94,7 +94,9 @@ class CheckReport:
     method : str
         How the values were obtained.
     facts : tuple of Fact
-        Verified facts the proof used (empty for estimates).
+        Verified facts: those the proof used; for estimates, the verified
+        facts that imply no constant (a gradient-step structure ``D = I -
+        grad g``, which the potential route of the guarantees uses).
     claims : tuple of Fact
         Unverified statements (the user's claims), recorded, not used as proof.
     tolerance : float

@@ -46,6 +46,10 @@ def claimed_constants(claims: tuple[Fact, ...]) -> StructuralConstants | None:
 
 
 def _combine(facts: tuple[Fact, ...]) -> StructuralConstants | None:
+    # Facts that imply no constant (a gradient-step structure) leave the constants to the search.
+    facts = tuple(
+        f for f in facts if any(v is not None for v in (f.theta, f.lipschitz, f.residual_lipschitz, f.spectrum))
+    )
     if not facts:
         return None
     theta = lipschitz = residual = math.inf

@@ -161,6 +161,15 @@ class Denoiser(abc.ABC):
             )
         return from_tensor(out, kind)
 
+    def potential_at(self, t: torch.Tensor) -> Any:
+        """The potential ``g`` at ``t`` when ``D = I - grad g`` with ``g`` computable, else None.
+
+        Returns a :class:`~pnpguard.denoisers.PotentialPoint` (value now,
+        gradient on demand) for gradient-step denoisers; None (the default)
+        for every other denoiser.
+        """
+        return None
+
     def tolerance_driver(self) -> Callable[[torch.Tensor, float], torch.Tensor] | None:
         """For an inexactly computed map: ``apply(t, tol)`` computing it to RMS error ``tol`` per pixel.
 

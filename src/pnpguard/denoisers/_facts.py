@@ -18,7 +18,7 @@ from typing import Union
 from .._validation import choice, nonnegative_number, number, number_in
 
 #: The kinds of statement a Fact can make, sorted.
-FACT_KINDS = ("averaged", "linear_symmetric", "nonexpansive", "proximal")
+FACT_KINDS = ("averaged", "gradient_step", "linear_symmetric", "nonexpansive", "proximal")
 
 _USER_SOURCE = "the user's claim"
 
@@ -33,9 +33,11 @@ class Fact:
 
     Attributes
     ----------
-    kind : {"averaged", "linear_symmetric", "nonexpansive", "proximal"}
+    kind : {"averaged", "gradient_step", "linear_symmetric", "nonexpansive", "proximal"}
         ``"proximal"``: ``D`` is the proximal operator of a proper, lower
-        semicontinuous convex function. ``"linear_symmetric"``: ``D`` is a
+        semicontinuous convex function. ``"gradient_step"``: ``D = I - grad g``
+        for a potential ``g`` that the denoiser can evaluate (its
+        :meth:`~pnpguard.Denoiser.potential`); it implies no constant. ``"linear_symmetric"``: ``D`` is a
         symmetric matrix with eigenvalues in ``spectrum``. ``"averaged"``:
         ``D`` is ``theta``-averaged. ``"nonexpansive"``: ``D`` is
         ``lipschitz``-Lipschitz with ``lipschitz <= 1``.
@@ -153,6 +155,11 @@ class Fact:
         return cls("linear_symmetric", spectrum=tuple(spectrum), verified=verified, source=source)
 
     @classmethod
+    def gradient_step(cls, source: str, *, verified: bool = False) -> Fact:
+        """``D = I - grad g`` with a computable potential ``g`` (no constants implied)."""
+        return cls("gradient_step", verified=verified, source=source)
+
+    @classmethod
     def averaged(cls, theta: float, source: str, *, verified: bool = False) -> Fact:
         """A theta-averaged map."""
         return cls("averaged", theta=theta, verified=verified, source=source)
@@ -178,6 +185,8 @@ class Fact:
         if self.tolerance > 0:
             parts.append(f"up to an RMS error of {self.tolerance:.3g} per pixel")
         status = "verified" if self.verified else "unverified"
+        if self.kind == "gradient_step":
+            parts.append("D = I - grad g, g computable")
         return f"{self.kind} ({', '.join(parts)}) [{status}: {self.source}]"
 
 
@@ -190,6 +199,8 @@ def _implied(fact: Fact) -> dict[str, float]:
     if fact.kind == "nonexpansive":
         lipschitz = 1.0 if fact.lipschitz is None else fact.lipschitz
         return {"theta": 1.0, "lipschitz": lipschitz, "residual_lipschitz": 1.0 + lipschitz}
+    if fact.kind == "gradient_step":
+        return {}
     low, high = fact.spectrum
     implied = {
         "lipschitz": max(abs(low), abs(high)),
@@ -236,8 +247,10 @@ def as_claim(claim: ClaimLike) -> Fact:
             return Fact.proximal(_USER_SOURCE)
         if claim == "nonexpansive":
             return Fact.nonexpansive(_USER_SOURCE)
+        if claim == "gradient_step":
+            return Fact.gradient_step(_USER_SOURCE)
         raise ValueError(
-            f"a claim given as a string must be 'nonexpansive' or 'proximal', got {claim!r}; "
+            f"a claim given as a string must be 'gradient_step', 'nonexpansive' or 'proximal', got {claim!r}; "
             "use ('averaged', theta), ('linear_symmetric', (a, b)) or a Fact for the others"
         )
     if isinstance(claim, tuple) and len(claim) == 2:

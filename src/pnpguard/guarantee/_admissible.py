@@ -47,7 +47,7 @@ class Guarantee:
         Recommended relaxation ``lam`` in ``x+ = x + lam (T x - x)``.
     relaxation_interval : tuple of float
         Open interval of admissible relaxations (at the recommended step).
-    map_kind : {"averaged", "contraction", "nonexpansive"}
+    map_kind : {"averaged", "contraction", "descent", "nonexpansive"}
         What the theorem says of the relaxed iteration map at the recommended
         parameters.
     constant : float
@@ -130,16 +130,28 @@ class Guarantee:
         lines = [
             f"guarantee for {self.algorithm} ({self.route} route): {self.status.upper()}",
             f"  {name:<19}{self.step:.6g}   admissible ({low:.6g}, {_fmt(high)})",
-            f"  relaxation         {self.relaxation:.6g}   admissible "
-            f"({self.relaxation_interval[0]:.6g}, {_fmt(self.relaxation_interval[1])})",
-            f"  iteration map      {self.map_kind}"
-            + ("" if self.map_kind == "nonexpansive" else f", constant {self.constant:.6g}"),
+            f"  relaxation         {self.relaxation:.6g}   "
+            + (
+                "admissible: 1 only"
+                if self.relaxation_interval[1] - self.relaxation_interval[0] < 1e-12
+                else f"admissible ({self.relaxation_interval[0]:.6g}, {_fmt(self.relaxation_interval[1])})"
+            ),
+            _map_text(self.map_kind, self.constant),
             f"  theorem            {self.theorem}",
         ]
         lines += [f"  assumes            {text}" for text in self.assumptions]
         for other in self.alternatives:
             lines.append(f"  also admissible    {other.route} route, {name} {other.step:.6g}")
         return "\n".join(lines)
+
+
+def _map_text(kind: str, constant: float) -> str:
+    if kind == "descent":
+        return (
+            f"  objective          F = f + g decreases at every step by at least ({constant:g} / tau) "
+            "||x_(k+1) - x_k||^2 (checked by the monitor)"
+        )
+    return f"  iteration map      {kind}" + ("" if kind == "nonexpansive" else f", constant {constant:.6g}")
 
 
 def _fmt(value: float) -> str:
@@ -153,7 +165,13 @@ def _constants(fidelity: LeastSquares, report: CheckReport, margin: float) -> Co
     mu = fidelity.strong_convexity
     if mu <= MU_ROUNDING * fidelity.lipschitz:
         mu = 0.0
+    potential = ""
+    if any(f.kind == "gradient_step" and f.verified for f in report.facts):
+        potential = "proved"
+    elif any(f.kind == "gradient_step" for f in report.claims):
+        potential = "claimed"
     common = dict(
+        potential=potential,
         denoiser_lipschitz=report.lipschitz,
         lipschitz=fidelity.lipschitz,
         strong_convexity=mu,
@@ -181,6 +199,14 @@ def _constants(fidelity: LeastSquares, report: CheckReport, margin: float) -> Co
 
 
 def _assumptions(c: Constants, report: CheckReport, route: Route) -> tuple[str, ...]:
+    if not route.uses_constants:
+        premise = {
+            "proved": "D = I - grad g with g computable, built by the library from the network "
+            "(verified by construction)",
+            "claimed": "the user's claim that D = I - grad g for the potential g given with it (not verified; "
+            "the run monitor checks the sufficient decrease of F = f + g at every step)",
+        }[c.potential]
+        return (premise, "data term convex with a computable prox", route.assumption)
     texts = []
     if c.basis == "proved":
         texts.append(f"denoiser constants proved from its structure ({report.method})")
@@ -216,6 +242,10 @@ def _guarantee(
 ) -> Guarantee:
     certified = route.iteration_map(c, window.step)
     constant = 1.0 if certified.kind == "nonexpansive" else route.relaxed(window.relaxation, certified.constant)
+    if window.basis is None:
+        status = "proved" if c.basis == "proved" and c.data_proved else "conditional"
+    else:
+        status = "proved" if window.basis == "proved" else "conditional"
     return Guarantee(
         algorithm=algorithm,
         route=route.name,
@@ -227,7 +257,7 @@ def _guarantee(
         constant=constant,
         theorem=route.theorem,
         assumptions=_assumptions(c, report, route),
-        status="proved" if c.basis == "proved" and c.data_proved else "conditional",
+        status=status,
         theta=c.theta,
         residual_lipschitz=c.residual_lipschitz,
         lipschitz=c.lipschitz,
@@ -288,6 +318,15 @@ def _suggestions(
             "relaxing the denoiser cannot repair it: the witness pair is expanded with "
             "<x - y, r> <= 0 for every factor s of (1 - s) I + s D; use a denoiser with proved structure "
             "(e.g. wavelet soft thresholding or an averaged-by-construction network)"
+        )
+    if c.refutation in ("nonexpansiveness", "averagedness") and not c.potential:
+        suggestions.append(
+            "give the network an explicit potential: pnpguard.gradient_step_denoiser(network, sigma) "
+            "builds D = I - grad g with g = ||x - N(x)||^2 / 2 from any torch network N(x, sigma); "
+            "fine-tune it as a gradient-step denoiser (pnpguard.train_denoiser(frames, "
+            "architecture='gradient-step', initial_weights=...)) and run "
+            "pnpguard.reconstruct('proximal_gradient', fidelity, denoiser): the potential route needs no "
+            "Lipschitz constant"
         )
     if report.sigma is not None and report.sigma > report.lowest_sigma:
         suggestions.append(

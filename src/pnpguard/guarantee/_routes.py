@@ -18,9 +18,10 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Literal, Protocol
 
+from ..splitting import SUFFICIENT_DECREASE
 from . import _theorems as th
 
-MapKind = Literal["averaged", "contraction", "nonexpansive"]
+MapKind = Literal["averaged", "contraction", "descent", "nonexpansive"]
 
 
 class RouteConstants(Protocol):
@@ -34,20 +35,27 @@ class RouteConstants(Protocol):
 
 @dataclass(frozen=True)
 class Window:
-    """Where a route applies: the open interval of parameters and the recommended values."""
+    """Where a route applies: the open interval of parameters and the recommended values.
+
+    ``basis`` overrides where the route's premise comes from (``"proved"`` or
+    ``"claimed"``) when the route does not rest on the denoiser's constants.
+    """
 
     step: float
     interval: tuple[float, float]
     relaxation: float
+    basis: str | None = None
 
 
 @dataclass(frozen=True)
 class IterationMap:
     """What a route certifies of the unrelaxed map at one parameter value.
 
-    ``constant`` is the averagedness constant (``"averaged"``) or the
-    Lipschitz factor of the map the relaxation acts on (``"contraction"``);
-    ``relaxations`` is the open interval of admissible relaxations.
+    ``constant`` is the averagedness constant (``"averaged"``), the
+    Lipschitz factor of the map the relaxation acts on (``"contraction"``) or
+    the sufficient-decrease constant ``c`` of an objective the scheme decreases
+    (``"descent"``); ``relaxations`` is the open interval of admissible
+    relaxations.
     """
 
     kind: MapKind
@@ -82,6 +90,9 @@ class Route:
         the relaxed map ``(1 - lam) I + lam T``.
     assumption : str
         Wording of what the route assumes beyond the constants.
+    uses_constants : bool
+        False for routes that rest on the denoiser's structure alone (the
+        potential route): the guarantee then quotes no denoiser constant.
     """
 
     name: str
@@ -91,6 +102,7 @@ class Route:
     iteration_map: Callable[[RouteConstants, float], IterationMap]
     relaxed: Callable[[float, float], float]
     assumption: str = "the iteration map has a fixed point (a solution exists)"
+    uses_constants: bool = True
 
 
 # ------------------------------------------------------------------- constants
@@ -117,6 +129,9 @@ class Constants:
         The check's reason when the denoiser was refuted, else "".
     estimates : tuple of float
         The check's raw ``(theta, residual_lipschitz)`` before the margin.
+    potential : {"proved", "claimed", ""}
+        Whether ``D = I - grad g`` with ``g`` computable is verified (built by
+        the library), the user's claim, or unknown.
     """
 
     theta: float
@@ -130,6 +145,7 @@ class Constants:
     expansive: bool
     refutation: str
     estimates: tuple[float, float]
+    potential: str = ""
 
     def quoted(self, value: float) -> str:
         """A denoiser constant as printed in reasons, marked when it carries the safety margin."""
@@ -284,6 +300,26 @@ def _dr_residual_map(c: RouteConstants, step: float) -> IterationMap:
     return IterationMap("contraction", rho, (0.0, 4.0 / (1.0 + rho)))
 
 
+# ---------------------------------------------------------------- potential route
+def _potential_applies(c: Constants, algorithm: str) -> Window | str:
+    if c.potential:
+        # tau = 1 makes the gradient step on g the denoiser itself: x+ = prox_f(D(x)).
+        return Window(1.0, (0.0, math.inf), 1.0, basis=c.potential)
+    return (
+        "the potential route needs a denoiser with an explicit potential, D = I - grad g "
+        "(pnpguard.gradient_step_denoiser builds one from a torch network)"
+    )
+
+
+def _potential_map(c: RouteConstants, step: float) -> IterationMap:
+    # Relaxation 1 only: a relaxed descent step is not a descent step.
+    return IterationMap("descent", SUFFICIENT_DECREASE, (math.nextafter(1.0, 0.0), math.nextafter(1.0, 2.0)))
+
+
+def _descent_constant(relaxation: float, constant: float) -> float:
+    return constant
+
+
 _DOUGLAS_RACHFORD = ("douglas_rachford", "admm")
 
 #: The routes, in order of preference within each algorithm.
@@ -355,6 +391,27 @@ ROUTES: tuple[Route, ...] = (
         applies=_dr_residual_applies,
         iteration_map=_dr_residual_map,
         relaxed=_half_relaxed_contraction,
+    ),
+    Route(
+        name="potential",
+        algorithms=("proximal_gradient",),
+        theorem=(
+            "proximal gradient with backtracking on F = f + g, g smooth and nonconvex, f convex: F(x_k) "
+            "decreases and converges, ||x_(k+1) - x_k|| -> 0 and every limit point is a critical point of F "
+            "(Beck, First-Order Methods in Optimization, SIAM 2017, Sec. 10.3, Thm. 10.15, number from memory); for real-analytic g "
+            "(softplus networks) and bounded iterates the whole sequence converges to one critical point "
+            "(Attouch, Bolte & Svaiter, Math. Program. 137 (2013), Thm. 5.1); gradient-step denoiser "
+            "D = I - grad g (Hurault, Leclaire & Papadakis, ICLR 2022)"
+        ),
+        applies=_potential_applies,
+        iteration_map=_potential_map,
+        relaxed=_descent_constant,
+        assumption=(
+            "convergence to a critical point of the nonconvex objective F = f + g, not to a global "
+            "minimiser; F is evaluated exactly as computed (the sufficient decrease is checked at every "
+            "step); convergence of the whole sequence needs bounded iterates"
+        ),
+        uses_constants=False,
     ),
 )
 

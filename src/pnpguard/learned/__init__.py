@@ -24,6 +24,7 @@ from ._denoisers import (
     residual_cnn,
     verified_layer_bounds,
 )
+from ._gradient_step import GradientStepNetwork
 from ._lipschitz import circular_conv_norm, conv_norm_bound
 from ._multiscale import MultiscaleResidualCNN
 from ._residual import ResidualCNN
@@ -33,6 +34,7 @@ __all__ = [
     "AVERAGED_WEIGHTS",
     "RESIDUAL_WEIGHTS",
     "AveragedCNN",
+    "GradientStepNetwork",
     "LayerBounds",
     "LearnedDenoiser",
     "MultiscaleResidualCNN",

@@ -99,7 +99,15 @@ class _Run:
         # error_gain tol sqrt(N) (the Algorithm record says how often the error enters T),
         # and two consecutive steps enter each comparison of the monitor.
         per_tolerance = self.algorithm.error_gain * math.sqrt(start.numel())
-        monitor = Monitor(self.policy, certified[0], certified[1], scale, 2.0 * self.relaxation * tolerance * per_tolerance)
+        monitor = Monitor(
+            self.policy,
+            certified[0],
+            certified[1],
+            scale,
+            2.0 * self.relaxation * tolerance * per_tolerance,
+            fixed_point=self.algorithm.watches == "fixed_point",
+        )
+        objectives: list[float] = []
         # Without a driver the error stays at `tolerance`: residuals below what it allows
         # say nothing about the exact map's fixed point.
         error_floor = 0.0 if driven is not None else self.relaxation * tolerance * per_tolerance
@@ -119,12 +127,19 @@ class _Run:
                 driven.tolerance = driven.schedule(iteration, v.dtype)
                 monitor.inexactness = 2.0 * relaxation * previous_tolerance * per_tolerance
             image, candidate_estimate = scheme(v)
-            step = relaxation * (image - v)
-            candidate = v + step
+            # With relaxation 1 the candidate is the map's output itself (not v + (T v - v),
+            # which differs by rounding): a descent scheme recognises its own accepted point.
+            candidate = image if relaxation == 1.0 else v + relaxation * (image - v)
+            step = candidate - v
             blow, candidate_size = monitor.blow_up(iteration, candidate)
             step_norm = norm(step)
             if blow is None:
                 new_flags = monitor.observe(iteration, v, size, step, step_norm)
+                if self.algorithm.watches == "objective":
+                    descent = scheme.last
+                    if not objectives:
+                        objectives.append(descent.objective_before)
+                    new_flags += monitor.descent(iteration, descent)
             else:
                 new_flags = [blow]
             flags += new_flags
@@ -147,6 +162,8 @@ class _Run:
             relative.append(residual / max(size, 1e-300))
             size = candidate_size
             v, estimate = candidate, candidate_estimate
+            if objectives:
+                objectives.append(scheme.last.objective_after)
             if self.reference is not None:
                 metrics["psnr"].append(psnr(estimate, self.reference, data_range=self.data_range))
                 metrics["ssim"].append(ssim(estimate, self.reference, data_range=self.data_range))
@@ -186,6 +203,7 @@ class _Run:
             message=message,
             residuals=np.asarray(residuals),
             relative_residuals=np.asarray(relative),
+            objectives=np.asarray(objectives),
             metrics={name: np.asarray(values) for name, values in metrics.items()},
             flags=tuple(flags),
             step=self.step,

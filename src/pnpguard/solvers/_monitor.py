@@ -28,6 +28,7 @@ import torch
 
 from .._validation import choice, positive_int, positive_number
 from ..check._pairs import ROUNDING_FACTOR, averagedness_statistic
+from ..splitting import DescentStep
 
 Action = Literal["warn", "stop", "back_off"]
 #: Flags with a policy (raised during the run).
@@ -140,6 +141,11 @@ class Monitor:
         computed inexactly (an iterative prox with a stated tolerance); added
         to the rounding allowance, so that evaluation errors the guarantee
         already admits are not reported as broken assumptions.
+    fixed_point : bool
+        True for fixed-point schemes (the residual and averagedness checks);
+        False for descent schemes, whose residuals need not fall
+        monotonically and whose certificate is the sufficient decrease of the
+        objective (:meth:`descent`).
     """
 
     policy: Policy
@@ -147,6 +153,7 @@ class Monitor:
     constant: float
     scale: float
     inexactness: float = 0.0
+    fixed_point: bool = True
     residuals: list[float] = field(default_factory=list)
     _previous_step: torch.Tensor | None = None
     _previous_point: torch.Tensor | None = None
@@ -176,7 +183,7 @@ class Monitor:
     ) -> list[Flag]:
         """Record the step ``d_k = v_{k+1} - v_k`` (norm ``residual``) taken from ``v_k = point``."""
         flags = []
-        if self._previous_step is not None:
+        if self._previous_step is not None and self.fixed_point:
             allowance = ROUNDING_FACTOR * torch.finfo(point.dtype).eps * 2.0 * point_norm + self.inexactness
             flags += self._compare(iteration, point, step, residual, allowance)
         self.residuals.append(residual)
@@ -254,6 +261,25 @@ class Monitor:
                 )
             ]
         return []
+
+    def descent(self, iteration: int, step: DescentStep) -> list[Flag]:
+        """Flag a step of a descent scheme that failed the sufficient decrease after backtracking.
+
+        The witness is the pair ``(x_k, x_(k+1))``; the message gives both
+        objective values and the smallest step tried. For a denoiser built
+        from its potential this does not happen (the test holds for every
+        small enough step); it exposes a potential that does not belong to the
+        map (a false claim) or a non-smooth one.
+        """
+        if step.accepted:
+            return []
+        message = (
+            f"no step down to tau = {step.step:.3g} decreases F = f + g enough: F went from "
+            f"{step.objective_before:.8g} to {step.objective_after:.8g}; the map is not a gradient step "
+            "on the stated potential (or the potential is not smooth)"
+        )
+        witness = (step.point_before, step.point_after)
+        return [self._flag("assumption_broken", iteration, message, step.objective_after - step.objective_before, witness)]
 
     def trivial(self, iteration: int, denoiser_input: torch.Tensor, denoiser_output: torch.Tensor) -> Flag | None:
         """Flag a run whose denoiser changes its final input by less than :data:`TRIVIAL_CHANGE` (relative).

@@ -76,6 +76,13 @@ class Reconstruction:
         Wall time of the iterations.
     check_seconds : float
         Wall time of the denoiser check done by this call (0 if reused or none).
+    back_offs : int
+        Relaxation halvings done by the monitor's back-off policy.
+    notes : tuple of str
+        Anything else about the run.
+    objectives : numpy.ndarray
+        For descent schemes (the potential route), ``F(x_k) = f(x_k) + g(x_k)``
+        for ``k = 0 ... iterations``; empty otherwise.
     """
 
     x: ArrayLike
@@ -95,6 +102,7 @@ class Reconstruction:
     check_seconds: float
     back_offs: int = 0
     notes: tuple[str, ...] = field(default=())
+    objectives: np.ndarray = field(default_factory=lambda: np.zeros(0))
 
     @property
     def guaranteed(self) -> bool:
@@ -120,6 +128,8 @@ class Reconstruction:
             )
         for name, values in self.metrics.items():
             lines.append(f"  {name:<19}{values[-1]:.4f} (final)")
+        if self.objectives.size:
+            lines.append(f"  objective F        {self.objectives[0]:.8g} -> {self.objectives[-1]:.8g}")
         lines += _flag_lines(self.flags)
         lines += [f"  note               {note}" for note in self.notes]
         return "\n".join(lines)

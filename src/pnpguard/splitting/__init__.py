@@ -6,7 +6,28 @@
   governing variable the convergence theory is about.
 """
 
-from ._schemes import DouglasRachford, ForwardBackward, Scheme
+from ._schemes import (
+    BACKTRACK_SHRINK,
+    MAX_BACKTRACKS,
+    SUFFICIENT_DECREASE,
+    DescentStep,
+    DouglasRachford,
+    ForwardBackward,
+    PotentialDescent,
+    Scheme,
+)
 from ._table import ALGORITHMS, Algorithm, algorithm
 
-__all__ = ["ALGORITHMS", "Algorithm", "DouglasRachford", "ForwardBackward", "Scheme", "algorithm"]
+__all__ = [
+    "ALGORITHMS",
+    "BACKTRACK_SHRINK",
+    "MAX_BACKTRACKS",
+    "SUFFICIENT_DECREASE",
+    "Algorithm",
+    "DescentStep",
+    "DouglasRachford",
+    "ForwardBackward",
+    "PotentialDescent",
+    "Scheme",
+    "algorithm",
+]

@@ -11,12 +11,13 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Literal
 
 import torch
 
 from .._validation import choice
 from ..fidelity import LeastSquares
-from ._schemes import DouglasRachford, ForwardBackward, Scheme
+from ._schemes import DouglasRachford, ForwardBackward, PotentialDescent, Scheme
 
 #: How the governing variable starts from the initial image ``x0``.
 StartRule = Callable[[LeastSquares, torch.Tensor, float], torch.Tensor]
@@ -54,6 +55,11 @@ class Algorithm:
         The governing variable the theory, and so the monitor, is about.
     start : callable
         ``start(fidelity, x0, step)``: the governing variable's first value.
+    watches : {"fixed_point", "objective"}
+        What the monitor checks: the fixed-point inequalities of an averaged or
+        contractive map on consecutive iterates, or the sufficient decrease of
+        a computed objective (descent schemes, whose residuals need not fall
+        monotonically).
     error_gain : int
         How many times one denoiser call's error can enter ``T v``: an
         inexact denoiser with error at most ``e`` per call moves ``T v`` by at
@@ -71,6 +77,7 @@ class Algorithm:
     variable: str
     start: StartRule
     error_gain: int
+    watches: Literal["fixed_point", "objective"] = "fixed_point"
 
 
 #: The algorithms, keyed by their API name, in the order printouts list them.
@@ -109,6 +116,18 @@ ALGORITHMS: dict[str, Algorithm] = {
             variable="w = x + u",
             start=_from_data_prox,
             error_gain=3,
+        ),
+        Algorithm(
+            name="proximal_gradient",
+            short="pgd",
+            title="proximal gradient on f + g",
+            scheme=PotentialDescent,
+            step_name="tau",
+            step_meaning="initial step tau of the backtracking (halved until F = f + g decreases enough)",
+            variable="x",
+            start=_from_image,
+            error_gain=1,
+            watches="objective",
         ),
     )
 }
