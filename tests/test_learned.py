@@ -481,3 +481,52 @@ def test_fresh_averaged_network_is_verified_after_finishing():
     assert not model.layer_bounds().nonexpansive
     model.finish_normalised_training()
     assert model.layer_bounds().nonexpansive
+
+
+def _tiny_frames():
+    rng = np.random.default_rng(7)
+    return [rng.random((40, 40)).astype(np.float32) for _ in range(3)]
+
+
+def test_gradient_step_network_trains_saves_and_loads_with_its_structure(tmp_path):
+    path = tmp_path / "gs.pt"
+    report = pg.train_denoiser(_tiny_frames(), architecture="gradient-step", widths=(4, 8), steps=3,
+                               batch_size=2, patch_size=32, validate_every=3, save_to=path, progress=False)
+    assert report.steps == 3 and path.is_file()
+    denoiser = pg.load_denoiser(path, 0.1)
+    assert isinstance(denoiser, pg.GradientStepDenoiser) and denoiser.facts[0].verified
+    direct = pg.learned.gradient_step_cnn(0.1, weights=path, weight=0.5)
+    x = torch.rand(1, 1, 24, 24, dtype=torch.float64, generator=torch.Generator().manual_seed(0))
+    # D = I - weight grad g: the weight scales the step exactly.
+    torch.testing.assert_close(x - direct.apply(x), 0.5 * (x - denoiser.apply(x)))
+    with pytest.raises(ValueError, match="noise range"):
+        pg.learned.gradient_step_cnn(1.0, weights=path)
+
+
+def test_an_interrupted_training_resumes_where_it_stopped(tmp_path, monkeypatch):
+    # Same budget, same seed: 6 steps in one run, or 3 steps, an interruption, and a resumed
+    # run from the checkpoint, give the same weights to the bit (random streams restored).
+    from pnpguard.learned import _data
+
+    settings = dict(architecture="residual", depth=3, width=4, steps=6, batch_size=2, patch_size=32,
+                    validate_every=3, progress=False)
+    whole = pg.train_denoiser(_tiny_frames(), **settings).model
+    checkpoint = tmp_path / "run.checkpoint"
+    original = _data.PatchSampler.noisy_batch
+    calls = {"n": 0}
+
+    def interrupted(self, batch_size):
+        calls["n"] += 1
+        if calls["n"] == 5:
+            raise KeyboardInterrupt
+        return original(self, batch_size)
+
+    monkeypatch.setattr(_data.PatchSampler, "noisy_batch", interrupted)
+    with pytest.raises(KeyboardInterrupt):
+        pg.train_denoiser(_tiny_frames(), checkpoint=checkpoint, **settings)
+    monkeypatch.setattr(_data.PatchSampler, "noisy_batch", original)
+    assert checkpoint.is_file()
+    resumed = pg.train_denoiser(_tiny_frames(), checkpoint=checkpoint, **settings)
+    assert resumed.steps == 6
+    for name, tensor in whole.state_dict().items():
+        torch.testing.assert_close(resumed.model.state_dict()[name], tensor, rtol=0, atol=0)

@@ -137,22 +137,47 @@ class GradientStepDenoiser(Denoiser):
         return t - self.potential_at(t).gradient()
 
 
-class _ModulePotential:
-    """``g(x) = ||x - N(x, sigma)||^2 / 2`` per image for a torch module ``N``, in the input's dtype."""
+def _residual_energy(module: nn.Module, x: torch.Tensor, sigma: float) -> torch.Tensor:
+    """``||x - N(x, sigma)||^2 / 2`` per image."""
+    return 0.5 * (x - module(x, sigma)).flatten(1).square().sum(1)
 
-    def __init__(self, module: nn.Module, sigma: float):
+
+class ModulePotential:
+    """A potential computed by a torch module, run in the input's dtype and on its device.
+
+    Parameters
+    ----------
+    module : torch.nn.Module
+        Copied, frozen and put in evaluation mode.
+    sigma : float
+        Noise level passed on.
+    energy : callable, optional
+        ``energy(module, x, sigma) -> (N,)``; default ``||x - module(x, sigma)||^2 / 2``.
+    """
+
+    def __init__(
+        self,
+        module: nn.Module,
+        sigma: float,
+        energy: Callable[[nn.Module, torch.Tensor, float], torch.Tensor] = _residual_energy,
+    ):
         self._module = copy.deepcopy(module).eval()
         for parameter in self._module.parameters():
             parameter.requires_grad_(False)
         self._sigma = sigma
+        self._energy = energy
         self._copies: dict[tuple[torch.dtype, torch.device], nn.Module] = {}
+
+    @property
+    def module(self) -> nn.Module:
+        """The frozen network (its own dtype)."""
+        return self._module
 
     def __call__(self, x: torch.Tensor) -> torch.Tensor:
         key = (x.dtype, x.device)
         if key not in self._copies:
             self._copies[key] = copy.deepcopy(self._module).to(dtype=x.dtype, device=x.device)
-        residual = x - self._copies[key](x, self._sigma)
-        return 0.5 * residual.flatten(1).square().sum(1)
+        return self._energy(self._copies[key], x, self._sigma)
 
 
 def gradient_step_denoiser(
@@ -207,7 +232,7 @@ def gradient_step_denoiser(
         f"D = I - grad g with g(x) = ||x - N(x)||^2 / 2 built by the library from the network "
         f"{type(module).__name__} and differentiated by autograd (Hurault, Leclaire & Papadakis, ICLR 2022)"
     )
-    return GradientStepDenoiser(_ModulePotential(module, sigma), name=name, sigma=sigma, weight=weight, source=source)
+    return GradientStepDenoiser(ModulePotential(module, sigma), name=name, sigma=sigma, weight=weight, source=source)
 
 
 class _ClaimedPotential(Denoiser):

@@ -15,9 +15,11 @@
 from ._averaged import AveragedCNN, LayerBounds
 from ._denoisers import (
     AVERAGED_WEIGHTS,
+    GRADIENT_STEP_WEIGHTS,
     RESIDUAL_WEIGHTS,
     LearnedDenoiser,
     averaged_cnn,
+    gradient_step_cnn,
     load_denoiser,
     load_network,
     module_denoiser,
@@ -32,6 +34,7 @@ from ._training import TrainingReport, load_training_images, train_denoiser
 
 __all__ = [
     "AVERAGED_WEIGHTS",
+    "GRADIENT_STEP_WEIGHTS",
     "RESIDUAL_WEIGHTS",
     "AveragedCNN",
     "GradientStepNetwork",
@@ -43,6 +46,7 @@ __all__ = [
     "averaged_cnn",
     "circular_conv_norm",
     "conv_norm_bound",
+    "gradient_step_cnn",
     "load_denoiser",
     "load_network",
     "load_training_images",

@@ -15,14 +15,17 @@ from torch import nn
 from .._validation import nonnegative_number, number, number_in, positive_number
 from ..denoisers._base import Denoiser
 from ..denoisers._facts import ClaimLike, Fact, as_claim
+from ..denoisers._potential import GradientStepDenoiser, ModulePotential
 from ._architectures import BY_CLASS_NAME
 from ._averaged import AveragedCNN, LayerBounds
+from ._gradient_step import GradientStepNetwork
 from ._weights import read_weights
 
 #: Folder of the weights shipped with the package.
 WEIGHTS_DIR = Path(__file__).resolve().parent / "weights"
 RESIDUAL_WEIGHTS = WEIGHTS_DIR / "residual_cnn.pt"
 AVERAGED_WEIGHTS = WEIGHTS_DIR / "averaged_cnn.pt"
+GRADIENT_STEP_WEIGHTS = WEIGHTS_DIR / "gradient_step_cnn.pt"
 
 #: Architectures that predict the noise and carry no facts.
 _RESIDUAL_FAMILY = ("MultiscaleResidualCNN", "ResidualCNN")
@@ -368,9 +371,62 @@ def averaged_facts(model: AveragedCNN, theta: float) -> tuple[Fact, ...]:
     )
 
 
+def _network_potential(model: nn.Module, x: torch.Tensor, sigma: float) -> torch.Tensor:
+    return model.potential(x, sigma)
+
+
+def gradient_step_cnn(
+    sigma: float, *, weight: float = 1.0, weights: str | Path | None = None
+) -> GradientStepDenoiser:
+    r"""The shipped gradient-step denoiser ``D = I - weight grad g``, set to noise level ``sigma``.
+
+    ``g(x) = ||R(x; sigma)||^2 / 2`` with ``R`` a softplus
+    :class:`MultiscaleResidualCNN` (:class:`GradientStepNetwork`), fine-tuned
+    from the shipped residual network as a gradient-step denoiser. The
+    structure ``D = I - grad g`` with ``g`` computable holds by construction
+    and is a verified fact, which is what the potential route of
+    :func:`pnpguard.admissible` needs (no Lipschitz estimate).
+
+    Parameters
+    ----------
+    sigma : float
+        Noise level in intensity units, within the trained range.
+    weight : float, optional
+        ``lambda`` in ``D = I - lambda grad g``: the regularisation weight of
+        the objective ``F = f + lambda g`` (default 1).
+    weights : str or pathlib.Path, optional
+        A weights file of a :class:`GradientStepNetwork`; default the shipped one.
+
+    Returns
+    -------
+    GradientStepDenoiser
+
+    References
+    ----------
+    .. [1] S. Hurault, A. Leclaire and N. Papadakis, "Gradient step denoiser
+       for convergent plug-and-play", ICLR 2022. arXiv:2110.03220
+    """
+    path = Path(weights) if weights is not None else GRADIENT_STEP_WEIGHTS
+    model, training = _load(path, ("GradientStepNetwork",))
+    sigma = _check_trained_sigma(sigma, training)
+    source = (
+        "D = I - grad g with g(x) = ||R(x)||^2 / 2, R the softplus multi-scale network of "
+        f"{path.name}, differentiated by autograd (Hurault, Leclaire & Papadakis, ICLR 2022)"
+    )
+    denoiser = GradientStepDenoiser(
+        ModulePotential(model, sigma, _network_potential),
+        name="gradient-step CNN" if weight == 1.0 else f"gradient-step CNN (weight={weight:g})",
+        sigma=sigma,
+        weight=weight,
+        source=source,
+    )
+    denoiser.lowest_sigma = _lowest_trained_sigma(training)
+    return denoiser
+
+
 def load_denoiser(
     path: str | Path, sigma: float, *, theta: float | None = None, gain: float = 1.0
-) -> LearnedDenoiser:
+) -> LearnedDenoiser | GradientStepDenoiser:
     """A denoiser from a weights file written by :func:`train_denoiser`.
 
     Parameters
@@ -388,8 +444,9 @@ def load_denoiser(
 
     Returns
     -------
-    LearnedDenoiser
-        As :func:`residual_cnn` or :func:`averaged_cnn` would build it.
+    LearnedDenoiser or GradientStepDenoiser
+        As :func:`residual_cnn`, :func:`averaged_cnn` or
+        :func:`gradient_step_cnn` would build it.
 
     Raises
     ------
@@ -400,6 +457,10 @@ def load_denoiser(
     model = load_network(path)
     if isinstance(model, AveragedCNN):
         return averaged_cnn(sigma, theta=theta, gain=gain, weights=path)
+    if isinstance(model, GradientStepNetwork):
+        if theta is not None or gain != 1.0:
+            raise ValueError(f"`theta` and `gain` apply to averaged networks only; {str(path)!r} holds a GradientStepNetwork")
+        return gradient_step_cnn(sigma, weights=path)
     if theta is not None or gain != 1.0:
         raise ValueError(
             f"`theta` and `gain` apply to averaged networks only; {str(path)!r} holds a {type(model).__name__}"
