@@ -147,6 +147,7 @@ class PotentialDescent:
         self._built = any(f.kind == "gradient_step" and f.verified for f in denoiser.facts)
         self._here: Any = None
         self._here_point: torch.Tensor | None = None
+        self._here_objective = 0.0
 
     def _potential(self, v: torch.Tensor) -> Any:
         point = self.denoiser.potential_at(v)
@@ -158,8 +159,11 @@ class PotentialDescent:
         return point
 
     def __call__(self, v: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
-        here = self._here if self._here_point is v else self._potential(v)
-        before = self.fidelity.apply_value(v) + here.total
+        if self._here_point is v:  # the point accepted last time: its F and graph are kept
+            here, before = self._here, self._here_objective
+        else:
+            here = self._potential(v)
+            before = self.fidelity.apply_value(v) + here.total
         # The step uses the map itself, grad g(v) = v - D(v). For a denoiser the library built
         # from g the two agree by construction and the kept graph gives it in one backward
         # pass; for a user's claimed pairing, D is what is run and g only judges it.
@@ -180,7 +184,7 @@ class PotentialDescent:
             tau *= BACKTRACK_SHRINK
         self.step = tau if accepted else tau / BACKTRACK_SHRINK
         self.last = DescentStep(before, after, self.step, evaluations, accepted, v, candidate)
-        self._here, self._here_point = there, candidate
+        self._here, self._here_point, self._here_objective = there, candidate, after
         return candidate, candidate
 
     def denoiser_input(self, v: torch.Tensor) -> torch.Tensor:
