@@ -443,3 +443,26 @@ def test_printout_summarises_many_flags():
     text = str(result)
     assert f"residual_increase: {len(increases)}" in text
     assert len(text.splitlines()) < 20
+
+
+def test_interpolated_start_fills_missing_pixels_like_scipy():
+    # The observed pixels are kept; the missing ones are scipy.interpolate.griddata's
+    # linear interpolation (Delaunay), nearest outside the hull.
+    from scipy.interpolate import griddata
+
+    shape = (16, 16)
+    truth = pg.phantoms.cells(16, seed=2)
+    mask = pg.random_pixel_mask(shape, 0.6, seed=4)
+    fidelity = pg.LeastSquares(pg.PixelMask(mask), pg.PixelMask(mask)(truth))
+    start = pg.interpolated_start(fidelity)
+    rows, cols = np.nonzero(mask)
+    grid = tuple(np.mgrid[:16, :16])
+    reference = griddata(np.column_stack([rows, cols]), truth[mask], grid, method="linear")
+    inside = ~np.isnan(reference)
+    assert_close(start[inside], reference[inside], rtol=0, atol=1e-12, what="interpolated start vs griddata")
+    assert_close(start[mask], truth[mask], rtol=0, atol=1e-12, what="observed pixels kept")
+    tensor_start = pg.interpolated_start(pg.LeastSquares(pg.PixelMask(mask), torch.from_numpy(truth * mask)))
+    assert isinstance(tensor_start, torch.Tensor)
+    blur = pg.LeastSquares(pg.Convolution(pg.gaussian_psf(3, 0.5), shape), truth)
+    with pytest.raises(TypeError, match="needs a PixelMask"):
+        pg.interpolated_start(blur)

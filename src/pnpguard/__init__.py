@@ -21,11 +21,14 @@ from .operators import *  # noqa: F403
 from .operators import __all__ as _operators_all
 from .solvers import *  # noqa: F403
 from .solvers import __all__ as _solvers_all
+from .starts import fill_missing, interpolated_start
 
 __version__ = package_version()
 
 __all__ = [
     "LeastSquares",
+    "fill_missing",
+    "interpolated_start",
     "phantoms",
     "psnr",
     "ssim",

@@ -18,6 +18,7 @@ from skimage.restoration import richardson_lucy as skimage_richardson_lucy
 
 from ..denoisers._tv import forward_gradient, gradient_adjoint
 from ..fidelity import conjugate_gradient
+from ..starts import fill_missing
 from ..operators import (
     Convolution,
     Decimation,
@@ -232,16 +233,7 @@ def interpolation(problem: Problem, *, method: str) -> BaselineRun:
     op = problem.op
     if not isinstance(op, PixelMask):
         raise TypeError("interpolation needs an inpainting problem (a PixelMask operator)")
-    rows, cols = np.nonzero(op.mask)
-    points = np.column_stack([rows, cols]).astype(np.float64)
-    values = problem.y[op.mask]
-    grid = tuple(np.mgrid[: problem.shape[0], : problem.shape[1]].astype(np.float64))
-    filled = scipy.interpolate.griddata(points, values, grid, method=method)
-    outside = np.isnan(filled)
-    if outside.any():
-        nearest = scipy.interpolate.griddata(points, values, grid, method="nearest")
-        filled[outside] = nearest[outside]
-    return _direct(filled)
+    return _direct(fill_missing(op.mask, problem.y, method=method))
 
 
 def bicubic(problem: Problem) -> BaselineRun:
