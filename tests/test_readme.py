@@ -27,6 +27,7 @@ SUBSTITUTIONS = {
     # network is also made small, since proving its layer norms dominates the cost
     'architecture="averaged", seconds=600,': 'architecture="averaged", steps=2, depth=2, width=9,',
     "initial_weights=pg.learned.RESIDUAL_WEIGHTS, steps=500)": "initial_weights=pg.learned.RESIDUAL_WEIGHTS, steps=2)",
+    "steps=2000, save_to=": "steps=2, batch_size=2, patch_size=32, save_to=",
     # the whole quick suite is CI's job (.ci/run); one baseline method over its tasks here
     'bench.run_suite("quick")': 'bench.run_suite("quick", methods=["tikhonov"])',
 }
