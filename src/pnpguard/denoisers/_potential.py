@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import copy
 from collections.abc import Callable
 from typing import Any
 
@@ -12,6 +11,7 @@ from torch import nn
 from .._validation import positive_number
 from ._base import Denoiser
 from ._facts import Fact, as_claim
+from ._frozen import FrozenNetwork
 from ._wrap import as_denoiser
 
 #: ``potential(x) -> g(x)``: ``(N, C, H, W)`` images to one value per image, shape ``(N,)``,
@@ -161,23 +161,17 @@ class ModulePotential:
         sigma: float,
         energy: Callable[[nn.Module, torch.Tensor, float], torch.Tensor] = _residual_energy,
     ):
-        self._module = copy.deepcopy(module).eval()
-        for parameter in self._module.parameters():
-            parameter.requires_grad_(False)
+        self._network = FrozenNetwork(module)
         self._sigma = sigma
         self._energy = energy
-        self._copies: dict[tuple[torch.dtype, torch.device], nn.Module] = {}
 
     @property
     def module(self) -> nn.Module:
         """The frozen network (its own dtype)."""
-        return self._module
+        return self._network.module
 
     def __call__(self, x: torch.Tensor) -> torch.Tensor:
-        key = (x.dtype, x.device)
-        if key not in self._copies:
-            self._copies[key] = copy.deepcopy(self._module).to(dtype=x.dtype, device=x.device)
-        return self._energy(self._copies[key], x, self._sigma)
+        return self._energy(self._network.like(x), x, self._sigma)
 
 
 def gradient_step_denoiser(

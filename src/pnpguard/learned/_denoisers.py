@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import copy
 import hashlib
 import math
 import warnings
@@ -15,6 +14,7 @@ from torch import nn
 from .._validation import nonnegative_number, number, number_in, positive_number
 from ..denoisers._base import Denoiser
 from ..denoisers._facts import ClaimLike, Fact, as_claim
+from ..denoisers._frozen import FrozenNetwork
 from ..denoisers._potential import GradientStepDenoiser, ModulePotential
 from ._architectures import BY_CLASS_NAME
 from ._averaged import AveragedCNN, LayerBounds
@@ -71,31 +71,20 @@ class LearnedDenoiser(Denoiser):
         facts: Iterable[Fact] = (),
         lowest_sigma: float = 0.0,
     ) -> None:
-        if not isinstance(module, nn.Module):
-            raise TypeError(f"`module` must be a torch.nn.Module, got {type(module).__name__}")
+        self._network = FrozenNetwork(module)
         super().__init__(name=name, sigma=positive_number(sigma, "sigma"), differentiable=True, facts=facts)
-        self._module = copy.deepcopy(module).eval()
-        for parameter in self._module.parameters():
-            parameter.requires_grad_(False)
         self._options = dict(options or {})
-        self._copies: dict[tuple[torch.dtype, torch.device], nn.Module] = {}
         self.lowest_sigma = nonnegative_number(lowest_sigma, "lowest_sigma")
 
     @property
     def module(self) -> nn.Module:
         """The wrapped network (float32 copy, evaluation mode)."""
-        return self._module
-
-    def _network_for(self, t: torch.Tensor) -> nn.Module:
-        key = (t.dtype, t.device)
-        if key not in self._copies:
-            self._copies[key] = copy.deepcopy(self._module).to(dtype=t.dtype, device=t.device)
-        return self._copies[key]
+        return self._network.module
 
     def _denoise(self, t: torch.Tensor) -> torch.Tensor:
         # A copy, so that a network writing into its input cannot change the caller's data.
         batch = (t[None, None] if t.ndim == 2 else t).clone()
-        out = self._network_for(t)(batch, self.sigma, **self._options)
+        out = self._network.like(t)(batch, self.sigma, **self._options)
         return out[0, 0] if t.ndim == 2 else out
 
 

@@ -356,17 +356,7 @@ def forward_backward(fidelity: LeastSquares, denoiser: Any, **options: Any) -> R
         ``eta``; ``relaxation``, ``guard``, ``x0``, ``max_iter``, ``tol``,
         ``callback``, ``reference``...), validated once.
 
-    Returns
-    -------
-    Reconstruction
-
-    Raises
-    ------
-    Refused
-        On a guarded run that no theorem covers, or parameters outside the
-        admissible set.
-    TypeError, ValueError
-        For an unknown keyword or an invalid option.
+    Return value and errors are those of :func:`reconstruct`.
 
     References
     ----------
