@@ -68,12 +68,16 @@ def averagedness_excess(denoise, x: torch.Tensor, y: torch.Tensor, theta: float)
 # ------------------------------------------------------------ shipped weights
 @pytest.mark.parametrize(
     ("factory", "key", "options"),
-    [(residual_cnn, "residual", {}), (averaged_cnn, "averaged", {"theta": 0.9})],
+    [
+        (residual_cnn, "residual", {}),
+        (averaged_cnn, "averaged", {"theta": 0.9}),
+        (pg.learned.gradient_step_cnn, "gradient-step", {}),
+    ],
 )
 def test_shipped_weights_reproduce_recorded_psnr(factory, key, options):
     # The record was written by benchmarks/train_learned.py right after training.
     entry = RECORD[key]
-    table = entry["held_out_psnr"] if key == "residual" else entry["held_out_psnr"]["theta=0.9"]
+    table = entry["held_out_psnr"]["theta=0.9"] if key == "averaged" else entry["held_out_psnr"]
     clean = bundled_image("camera")
     sigma = 25 / 255
     noisy = noisy_copy(clean, sigma, seed=0)

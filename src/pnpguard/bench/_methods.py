@@ -19,7 +19,12 @@ from .._validation import unknown_message
 from ..check import CheckReport, check_denoiser
 from ..guarantee import Guarantee, Refused
 from ..solvers import reconstruct
+from ..operators import PixelMask
 from ..splitting import ALGORITHMS
+from ..starts import interpolated_start
+
+#: Algorithm records by the short names that method names use.
+ALGORITHMS_BY_SHORT = {record.short: record for record in ALGORITHMS.values()}
 from . import _baselines as bl
 from ._registry import get_denoiser, shipped_denoisers
 from ._tasks import Problem
@@ -193,8 +198,17 @@ def run_pnp(
     start = time.perf_counter()
     denoiser, report, check_seconds = denoisers.get(method.denoiser, strength)
     parameters: dict[str, Any] = {"strength": strength}
+    options: dict[str, Any] = {}
+    if ALGORITHMS_BY_SHORT[method.algorithm].watches == "objective" and isinstance(problem.op, PixelMask):
+        # A descent on a nonconvex objective from the zero-filled start barely moves the
+        # missing pixels; start from their interpolation (common practice). The guarantee
+        # covers the run from there.
+        options["x0"] = interpolated_start(problem.fidelity)
+        parameters["start"] = "interpolated"
     try:
-        result = reconstruct(method.algorithm, problem.fidelity, denoiser, report=report, max_iter=max_iter, tol=tol)
+        result = reconstruct(
+            method.algorithm, problem.fidelity, denoiser, report=report, max_iter=max_iter, tol=tol, **options
+        )
     except Refused as refusal:
         return Outcome(
             status="refused",

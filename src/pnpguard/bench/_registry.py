@@ -20,7 +20,7 @@ from ..denoisers import (
     TotalVariation,
     WaveletShrinkage,
 )
-from ..learned import averaged_cnn, residual_cnn
+from ..learned import averaged_cnn, gradient_step_cnn, residual_cnn
 
 Shape = tuple[int, int]
 
@@ -67,6 +67,21 @@ class ShippedDenoiser:
 #: step of the regulariser scaled by that step, so the best strengths are far
 #: below the data's noise level (1e-4 to 1e-2 on our tasks).
 _STRENGTH_GRID = tuple(round(10.0 ** (k / 5), 6) for k in range(-20, -4))
+
+#: Noise levels tried for the gradient-step network (its trained range ends at 55/255).
+_NOISE_GRID = (0.005, 0.0075, 0.01, 0.015, 0.02, 0.03, 0.04, 0.06, 0.08, 0.11, 0.15, 0.2)
+
+
+def _gradient_step(strength: float, shape: Shape) -> Denoiser:
+    """The gradient-step network at noise level ``strength`` with weight ``1 / strength^2``.
+
+    By Tweedie's formula a denoiser at noise level ``s`` has ``x - D(x) = s^2 grad(-log p_s)``,
+    so ``g / s^2`` stands for ``-log p_s`` and ``F = f + g / s^2`` is the maximum-a-posteriori
+    objective with the data term ``f = ||A x - y||^2 / (2 sigma^2)`` (Efron, JASA 106 (2011)
+    1602-1614, for Tweedie's formula; the scaling is our reading of it).
+    """
+    return gradient_step_cnn(strength, weight=1.0 / strength**2)
+
 
 _REGISTRY: dict[str, ShippedDenoiser] = {
     entry.name: entry
@@ -133,6 +148,16 @@ _REGISTRY: dict[str, ShippedDenoiser] = {
             _STRENGTH_GRID,
             "proved",
             lambda s, shape: averaged_cnn(s, theta=0.5),
+        ),
+        ShippedDenoiser(
+            "gradient-step-cnn",
+            "gradient-step network D = I - grad g, g computable (shipped weights; structure verified, "
+            "weight 1 / strength^2 for the potential route)",
+            "noise level",
+            0.04,
+            _NOISE_GRID,
+            "black box",
+            _gradient_step,
         ),
     )
 }
