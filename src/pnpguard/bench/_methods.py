@@ -20,11 +20,8 @@ from ..check import CheckReport, check_denoiser
 from ..guarantee import Guarantee, Refused
 from ..solvers import reconstruct
 from ..operators import PixelMask
-from ..splitting import ALGORITHMS
+from ..splitting import ALGORITHMS, algorithm
 from ..starts import interpolated_start
-
-#: Algorithm records by the short names that method names use.
-ALGORITHMS_BY_SHORT = {record.short: record for record in ALGORITHMS.values()}
 from . import _baselines as bl
 from ._registry import get_denoiser, shipped_denoisers
 from ._tasks import Problem
@@ -199,7 +196,7 @@ def run_pnp(
     denoiser, report, check_seconds = denoisers.get(method.denoiser, strength)
     parameters: dict[str, Any] = {"strength": strength}
     options: dict[str, Any] = {}
-    if ALGORITHMS_BY_SHORT[method.algorithm].watches == "objective" and isinstance(problem.op, PixelMask):
+    if algorithm(method.algorithm).watches == "objective" and isinstance(problem.op, PixelMask):
         # A descent on a nonconvex objective from the zero-filled start barely moves the
         # missing pixels; start from their interpolation (common practice). The guarantee
         # covers the run from there.

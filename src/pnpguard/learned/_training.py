@@ -96,9 +96,10 @@ def run_training(
     generator = torch.Generator().manual_seed(seed + 1)
     optimiser = torch.optim.Adam(model.parameters(), lr=learning_rate)
     report = TrainingReport(model=model, steps=0, seconds=0.0)
+    state = _TrainingState(model, optimiser, generator, sampler, report)
     offset = 0.0
     if checkpoint is not None and Path(checkpoint).is_file():
-        offset = _resume(Path(checkpoint), model, optimiser, generator, sampler, report)
+        offset = state.restore(Path(checkpoint))
     start = time.perf_counter() - offset
     bar = tqdm(total=steps, initial=report.steps, disable=not progress, unit="step", leave=False)
     running, count = 0.0, 0
@@ -146,7 +147,7 @@ def run_training(
                 if progress:
                     bar.write(message)
             if checkpoint is not None:
-                _save_checkpoint(Path(checkpoint), model, optimiser, generator, sampler, report, time.perf_counter() - start)
+                state.save(Path(checkpoint), time.perf_counter() - start)
     bar.close()
     model.eval()
     report.seconds = time.perf_counter() - start
@@ -156,53 +157,47 @@ def run_training(
 _CHECKPOINT_FORMAT = "pnpguard-training-checkpoint"
 
 
-def _save_checkpoint(
-    path: Path,
-    model: nn.Module,
-    optimiser: torch.optim.Optimizer,
-    generator: torch.Generator,
-    sampler: PatchSampler,
-    report: TrainingReport,
-    elapsed: float,
-) -> None:
-    """Write the training state to ``path`` atomically (a temporary file renamed over it)."""
-    state = {
-        "format": _CHECKPOINT_FORMAT,
-        "model": model.state_dict(),
-        "optimiser": optimiser.state_dict(),
-        "generator": generator.get_state(),
-        "sampler_generator": sampler.generator.get_state(),
-        "steps": report.steps,
-        "elapsed": elapsed,
-        "losses": list(report.losses),
-        "validation_psnr": [list(entry) for entry in report.validation_psnr],
-    }
-    path.parent.mkdir(parents=True, exist_ok=True)
-    temporary = path.with_name(path.name + ".partial")
-    torch.save(state, temporary)
-    temporary.replace(path)
+@dataclass
+class _TrainingState:
+    """Everything a resumed run needs to continue exactly where an interrupted one stopped."""
 
+    model: nn.Module
+    optimiser: torch.optim.Optimizer
+    generator: torch.Generator
+    sampler: PatchSampler
+    report: TrainingReport
 
-def _resume(
-    path: Path,
-    model: nn.Module,
-    optimiser: torch.optim.Optimizer,
-    generator: torch.Generator,
-    sampler: PatchSampler,
-    report: TrainingReport,
-) -> float:
-    """Restore a checkpoint written by :func:`_save_checkpoint`; return the elapsed seconds."""
-    state = torch.load(path, map_location="cpu", weights_only=True)
-    if not isinstance(state, dict) or state.get("format") != _CHECKPOINT_FORMAT:
-        raise ValueError(f"`checkpoint` {str(path)!r} is not a training checkpoint")
-    model.load_state_dict(state["model"])
-    optimiser.load_state_dict(state["optimiser"])
-    generator.set_state(state["generator"])
-    sampler.generator.set_state(state["sampler_generator"])
-    report.steps = int(state["steps"])
-    report.losses = [float(v) for v in state["losses"]]
-    report.validation_psnr = [(int(s), float(v)) for s, v in state["validation_psnr"]]
-    return float(state["elapsed"])
+    def save(self, path: Path, elapsed: float) -> None:
+        """Write the state to ``path`` atomically (a temporary file renamed over it)."""
+        state = {
+            "format": _CHECKPOINT_FORMAT,
+            "model": self.model.state_dict(),
+            "optimiser": self.optimiser.state_dict(),
+            "generator": self.generator.get_state(),
+            "sampler_generator": self.sampler.generator.get_state(),
+            "steps": self.report.steps,
+            "elapsed": elapsed,
+            "losses": list(self.report.losses),
+            "validation_psnr": [list(entry) for entry in self.report.validation_psnr],
+        }
+        path.parent.mkdir(parents=True, exist_ok=True)
+        temporary = path.with_name(path.name + ".partial")
+        torch.save(state, temporary)
+        temporary.replace(path)
+
+    def restore(self, path: Path) -> float:
+        """Load a state written by :meth:`save`; return the elapsed seconds it recorded."""
+        state = torch.load(path, map_location="cpu", weights_only=True)
+        if not isinstance(state, dict) or state.get("format") != _CHECKPOINT_FORMAT:
+            raise ValueError(f"`checkpoint` {str(path)!r} is not a training checkpoint")
+        self.model.load_state_dict(state["model"])
+        self.optimiser.load_state_dict(state["optimiser"])
+        self.generator.set_state(state["generator"])
+        self.sampler.generator.set_state(state["sampler_generator"])
+        self.report.steps = int(state["steps"])
+        self.report.losses = [float(v) for v in state["losses"]]
+        self.report.validation_psnr = [(int(s), float(v)) for s, v in state["validation_psnr"]]
+        return float(state["elapsed"])
 
 
 _IMAGE_SUFFIXES = (".png", ".tif", ".tiff")
