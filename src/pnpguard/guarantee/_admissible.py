@@ -321,8 +321,8 @@ def _suggestions(
         )
     if c.refutation in ("nonexpansiveness", "averagedness") and not c.potential:
         suggestions.append(
-            "give the network an explicit potential: pnpguard.gradient_step_denoiser(network, sigma) "
-            "builds D = I - grad g with g = ||x - N(x)||^2 / 2 from any torch network N(x, sigma); "
+            "if the denoiser is a torch network N(x, sigma), give it an explicit potential: "
+            "pnpguard.gradient_step_denoiser(N, sigma) builds D = I - grad g with g = ||x - N(x)||^2 / 2; "
             "fine-tune it as a gradient-step denoiser (pnpguard.train_denoiser(frames, "
             "architecture='gradient-step', initial_weights=...)) and run "
             "pnpguard.reconstruct('proximal_gradient', fidelity, denoiser): the potential route needs no "
