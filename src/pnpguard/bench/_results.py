@@ -130,6 +130,7 @@ def check_summary(report: Any) -> dict[str, Any] | None:
         "lipschitz": finite_or_none(report.lipschitz),
         "residual_lipschitz": finite_or_none(report.residual_lipschitz),
         "refuted": report.refuted,
+        "smoothness": None if report.smoothness is None else finite_or_none(report.smoothness.value),
         "calls": report.calls,
         "method": report.method,
     }

@@ -2,6 +2,16 @@
 
 from ._check import DEFAULT_BUDGET, check_denoiser
 from ._report import CheckReport, Witness
+from ._smoothness import DEFAULT_SMOOTHNESS_BUDGET, SmoothnessEstimate, estimate_smoothness
 from ._structure import claimed_constants
 
-__all__ = ["DEFAULT_BUDGET", "CheckReport", "Witness", "check_denoiser", "claimed_constants"]
+__all__ = [
+    "DEFAULT_BUDGET",
+    "DEFAULT_SMOOTHNESS_BUDGET",
+    "CheckReport",
+    "SmoothnessEstimate",
+    "Witness",
+    "check_denoiser",
+    "claimed_constants",
+    "estimate_smoothness",
+]

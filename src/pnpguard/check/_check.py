@@ -4,16 +4,16 @@ from __future__ import annotations
 
 import math
 import time
-from collections.abc import Sequence
 from dataclasses import replace
 from typing import Any
 
 import torch
 
-from .._arrays import ArrayKind, to_tensor
 from .._validation import int_at_least
 from ..denoisers import Denoiser, as_denoiser
 from ._report import NOT_AVERAGED_SLACK, CheckReport, Witness
+from ._samples import reference_sigma, split_samples
+from ._smoothness import DEFAULT_SMOOTHNESS_BUDGET, SmoothnessEstimate, estimate_smoothness
 from ._search import QUANTITIES, SCALES, BudgetExhausted, PairSearch
 from ._structure import structural_constants
 
@@ -23,32 +23,6 @@ DEFAULT_BUDGET = 200
 MIN_BUDGET = 20
 
 
-def _split_samples(sample: Any) -> tuple[list[torch.Tensor], ArrayKind]:
-    items = list(sample) if isinstance(sample, (list, tuple)) else [sample]
-    if not items:
-        raise ValueError("`sample` is empty: give at least one image")
-    tensors, kinds = [], []
-    for number, item in enumerate(items):
-        name = "sample" if len(items) == 1 else f"sample[{number}]"
-        tensor, kind = to_tensor(item, name)
-        tensors.extend(
-            [tensor.reshape(1, 1, *tensor.shape)] if tensor.ndim == 2 else list(tensor.split(1))
-        )
-        kinds.append(kind)
-    # Images of different sizes are fine: each is a base point of its own.
-    dtypes = {t.dtype for t in tensors}
-    if len(dtypes) > 1:
-        raise ValueError(f"`sample` images must share one dtype, got {sorted(map(str, dtypes))}")
-    return [t.clone() for t in tensors], kinds[0]
-
-
-def _reference_sigma(denoiser: Denoiser, samples: Sequence[torch.Tensor]) -> float:
-    if denoiser.sigma is not None:
-        return denoiser.sigma
-    spread = max(float(s.double().std()) for s in samples)
-    return 0.1 * spread if spread > 0 else 0.1
-
-
 def check_denoiser(
     denoiser: Any,
     sample: Any,
@@ -56,6 +30,7 @@ def check_denoiser(
     budget: int = DEFAULT_BUDGET,
     seed: int = 0,
     cross_check: bool = False,
+    smoothness_budget: int = DEFAULT_SMOOTHNESS_BUDGET,
 ) -> CheckReport:
     """Measure the averagedness and Lipschitz constants of a denoiser.
 
@@ -83,6 +58,11 @@ def check_denoiser(
         Also search when the structure proves the constants; a pair that
         exceeds a proved value beyond the stated tolerance makes the verdict
         ``"refuted"`` (the claimed structure is wrong).
+    smoothness_budget : int, optional
+        Jacobian products for :func:`pnpguard.estimate_smoothness`, run only
+        for a differentiable denoiser with a potential (``D = I - grad g``,
+        verified or claimed) whose pair search left ``Lip(I - D) < 1`` possible:
+        the prox route of the guarantees needs that constant (0 skips it).
 
     Returns
     -------
@@ -115,8 +95,9 @@ def check_denoiser(
     ('estimated', 0.25)
     """
     budget = int_at_least(budget, "budget", MIN_BUDGET)
+    smoothness_budget = int_at_least(smoothness_budget, "smoothness_budget", 0)
     denoiser = as_denoiser(denoiser)
-    samples, kind = _split_samples(sample)
+    samples, kind = split_samples(sample)
     if len(samples) > budget // 10:
         raise ValueError(
             f"`sample` has {len(samples)} images but a budget of {budget} calls covers at most "
@@ -166,6 +147,7 @@ def check_denoiser(
     if structure is not None:
         report = _cross_checked(denoiser, structure, search, witnesses, values, claims, seconds, method, notes)
         return replace(report, **strength)
+    smoothness = _smoothness(denoiser, samples, values, smoothness_budget, seed)
     refuted = None
     if search.expansive_found:
         refuted = "nonexpansiveness"
@@ -191,8 +173,17 @@ def check_denoiser(
         claims=claims,
         notes=tuple(notes),
         facts=tuple(f for f in denoiser.facts if f.verified),  # constant-free structure (gradient step)
+        smoothness=smoothness,
         **strength,
     )
+
+
+def _smoothness(denoiser, samples, values, budget: int, seed: int) -> SmoothnessEstimate | None:
+    """The dedicated estimate of ``Lip(I - D)`` when the prox route could use it, else None."""
+    has_potential = any(f.kind == "gradient_step" for f in denoiser.facts)
+    if budget == 0 or not has_potential or not denoiser.differentiable or values["residual_lipschitz"] >= 1.0:
+        return None
+    return estimate_smoothness(denoiser, samples, budget=budget, seed=seed)
 
 
 def _run_search(denoiser: Denoiser, samples: list[torch.Tensor], budget: int, seed: int) -> PairSearch:
@@ -201,7 +192,7 @@ def _run_search(denoiser: Denoiser, samples: list[torch.Tensor], budget: int, se
         denoiser,
         samples,
         budget=budget,
-        reference_sigma=_reference_sigma(denoiser, samples),
+        reference_sigma=reference_sigma(denoiser, samples),
         generator=generator,
     )
     try:

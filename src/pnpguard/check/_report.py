@@ -11,6 +11,7 @@ import torch
 from .._arrays import ArrayKind, ArrayLike, from_tensor
 from ..denoisers import Denoiser, Fact
 from ._pairs import PairStatistics, pair_statistics
+from ._smoothness import SmoothnessEstimate
 
 Verdict = Literal["proved", "estimated", "refuted"]
 
@@ -109,6 +110,10 @@ class CheckReport:
     lowest_sigma : float
         The lowest strength the denoiser accepts (0 unless it says otherwise,
         e.g. a network's trained range).
+    smoothness : SmoothnessEstimate or None
+        For a denoiser with a potential, the dedicated estimate of
+        ``Lip(I - D) = Lip(grad g)`` (:func:`pnpguard.estimate_smoothness`)
+        when the pair search left a value below 1 possible.
     """
 
     denoiser: str
@@ -127,6 +132,7 @@ class CheckReport:
     notes: tuple[str, ...] = ()
     sigma: float | None = None
     lowest_sigma: float = 0.0
+    smoothness: SmoothnessEstimate | None = None
 
     @property
     def witness(self) -> Witness | None:
@@ -168,6 +174,8 @@ class CheckReport:
                 f"  witness            {name} = {_fmt(witness.value)} at a pair with "
                 f"||x - y|| = {float(torch.linalg.vector_norm((witness.x - witness.y).double())):.3g}"
             )
+        if self.smoothness is not None:
+            lines.append(f"  smoothness         {self.smoothness}")
         lines += [f"  note               {note}" for note in self.notes]
         return "\n".join(lines)
 

@@ -64,6 +64,9 @@ class Guarantee:
         ``mu``).
     margin : float
         Safety margin applied to estimated constants.
+    smoothness : float
+        ``Lip(grad g)`` after the margin, for the prox route (``inf`` when not
+        estimated).
     alternatives : tuple of Guarantee
         Other routes that also apply.
     rule : Route
@@ -86,6 +89,7 @@ class Guarantee:
     lipschitz: float
     strong_convexity: float
     margin: float
+    smoothness: float = math.inf
     alternatives: tuple[Guarantee, ...] = field(default=(), repr=False)
     rule: Route | None = field(default=None, repr=False, compare=False)
 
@@ -136,7 +140,7 @@ class Guarantee:
                 if self.relaxation_interval[1] - self.relaxation_interval[0] < 1e-12
                 else f"admissible ({self.relaxation_interval[0]:.6g}, {_fmt(self.relaxation_interval[1])})"
             ),
-            _map_text(self.map_kind, self.constant),
+            _map_text(self.map_kind, self.constant, self.rule),
             f"  theorem            {self.theorem}",
         ]
         lines += [f"  assumes            {text}" for text in self.assumptions]
@@ -145,12 +149,9 @@ class Guarantee:
         return "\n".join(lines)
 
 
-def _map_text(kind: str, constant: float) -> str:
-    if kind == "descent":
-        return (
-            f"  objective          F = f + g decreases at every step by at least ({constant:g} / tau) "
-            "||x_(k+1) - x_k||^2 (checked by the monitor)"
-        )
+def _map_text(kind: str, constant: float, rule: Route | None) -> str:
+    if kind == "descent" and rule is not None:
+        return "  objective          " + rule.objective.format(c=constant)
     return f"  iteration map      {kind}" + ("" if kind == "nonexpansive" else f", constant {constant:.6g}")
 
 
@@ -165,6 +166,10 @@ def _constants(fidelity: LeastSquares, report: CheckReport, margin: float) -> Co
     mu = fidelity.strong_convexity
     if mu <= MU_ROUNDING * fidelity.lipschitz:
         mu = 0.0
+    smoothness_raw = math.nan
+    if report.smoothness is not None:
+        # Both are lower bounds of Lip(I - D): the larger is the better estimate.
+        smoothness_raw = max(report.smoothness.value, report.residual_lipschitz)
     potential = ""
     if any(f.kind == "gradient_step" and f.verified for f in report.facts):
         potential = "proved"
@@ -172,6 +177,8 @@ def _constants(fidelity: LeastSquares, report: CheckReport, margin: float) -> Co
         potential = "claimed"
     common = dict(
         potential=potential,
+        smoothness_raw=smoothness_raw,
+        smoothness=math.inf if math.isnan(smoothness_raw) else smoothness_raw * (1.0 + margin),
         denoiser_lipschitz=report.lipschitz,
         lipschitz=fidelity.lipschitz,
         strong_convexity=mu,
@@ -199,6 +206,9 @@ def _constants(fidelity: LeastSquares, report: CheckReport, margin: float) -> Co
 
 
 def _assumptions(c: Constants, report: CheckReport, route: Route) -> tuple[str, ...]:
+    if route.premise is not None:
+        data = f"data term convex, grad f Lipschitz with L = {c.lipschitz:.6g} ({'certified' if c.data_proved else 'estimated norm'})"
+        return (route.premise(c), data, route.assumption)
     if not route.uses_constants:
         premise = {
             "proved": "D = I - grad g with g computable, built by the library from the network "
@@ -263,6 +273,7 @@ def _guarantee(
         lipschitz=c.lipschitz,
         strong_convexity=c.strong_convexity,
         margin=c.margin if c.basis != "proved" else 0.0,
+        smoothness=c.smoothness,
         rule=route,
     )
 

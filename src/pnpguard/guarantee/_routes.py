@@ -16,9 +16,9 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Literal, Protocol
+from typing import Any, Literal, Protocol
 
-from ..splitting import SUFFICIENT_DECREASE
+from ..splitting import SUFFICIENT_DECREASE, ProxForwardBackward
 from . import _theorems as th
 
 MapKind = Literal["averaged", "contraction", "descent", "nonexpansive"]
@@ -31,6 +31,7 @@ class RouteConstants(Protocol):
     residual_lipschitz: float
     lipschitz: float
     strong_convexity: float
+    smoothness: float
 
 
 @dataclass(frozen=True)
@@ -93,6 +94,16 @@ class Route:
     uses_constants : bool
         False for routes that rest on the denoiser's structure alone (the
         potential route): the guarantee then quotes no denoiser constant.
+    objective : str
+        For routes that certify a descent, the objective that decreases and
+        by how much, with ``{c}`` for the sufficient-decrease constant.
+    scheme : callable or None
+        ``scheme(fidelity, denoiser, step, constant)`` building the iteration
+        the monitor watches, when the route needs another than the
+        algorithm's own (the prox route watches ``F = step f + phi``).
+    premise : callable or None
+        ``premise(constants) -> str``: what the route rests on, replacing the
+        default wording built from the denoiser's constants.
     """
 
     name: str
@@ -103,6 +114,11 @@ class Route:
     relaxed: Callable[[float, float], float]
     assumption: str = "the iteration map has a fixed point (a solution exists)"
     uses_constants: bool = True
+    objective: str = (
+        "F = f + g decreases at every step by at least ({c:g} / tau) ||x_(k+1) - x_k||^2 (checked by the monitor)"
+    )
+    scheme: Callable[..., Any] | None = None
+    premise: Callable[[Constants], str] | None = None
 
 
 # ------------------------------------------------------------------- constants
@@ -132,6 +148,12 @@ class Constants:
     potential : {"proved", "claimed", ""}
         Whether ``D = I - grad g`` with ``g`` computable is verified (built by
         the library), the user's claim, or unknown.
+    smoothness : float
+        ``Lip(grad g) = Lip(I - D)`` for the prox route: the larger of the
+        dedicated estimate and the pair search's lower bound, inflated by
+        ``margin``; ``inf`` when it was not estimated.
+    smoothness_raw : float
+        The same before the margin (``nan`` when not estimated).
     """
 
     theta: float
@@ -146,6 +168,8 @@ class Constants:
     refutation: str
     estimates: tuple[float, float]
     potential: str = ""
+    smoothness: float = math.inf
+    smoothness_raw: float = math.nan
 
     def quoted(self, value: float) -> str:
         """A denoiser constant as printed in reasons, marked when it carries the safety margin."""
@@ -320,6 +344,47 @@ def _descent_constant(relaxation: float, constant: float) -> float:
     return constant
 
 
+# -------------------------------------------------------------------- prox route
+def _prox_applies(c: Constants, algorithm: str) -> Window | str | None:
+    if not c.potential:
+        return None
+    if math.isnan(c.smoothness_raw):
+        if c.estimates[1] >= 1.0:
+            return (
+                "prox route (Hurault et al. 2022): needs Lip(grad g) = Lip(I - D) < 1; a pair of the check "
+                f"attains {c.estimates[1]:.4g}"
+            )
+        return (
+            "prox route: Lip(grad g) = Lip(I - D) was not estimated (check_denoiser(..., smoothness_budget=...) "
+            "with a budget above 0)"
+        )
+    if c.smoothness >= 1.0:
+        return (
+            f"prox route (Hurault et al. 2022): needs Lip(grad g) = Lip(I - D) < 1; estimated "
+            f"{c.smoothness_raw:.4g}" + (f" ({c.smoothness:.4g} with the {100 * c.margin:.0f} % margin)" if c.margin else "")
+        )
+    weak = th.prox_weak_convexity(c.smoothness)
+    return Window(1.0 / c.lipschitz, (0.0, (2.0 - weak) / c.lipschitz), 1.0, basis="estimated")
+
+
+def _prox_map(c: RouteConstants, step: float) -> IterationMap:
+    # Relaxation 1 only: the objective argument is about the plain step.
+    constant = th.prox_descent_constant(th.prox_weak_convexity(c.smoothness), step, c.lipschitz)
+    return IterationMap("descent", constant, (math.nextafter(1.0, 0.0), math.nextafter(1.0, 2.0)))
+
+
+def _prox_premise(c: Constants) -> str:
+    origin = {
+        "proved": "D = I - grad g built by the library from g (verified by construction)",
+        "claimed": "the user's claim that D = I - grad g for the potential given with it (not verified)",
+    }[c.potential]
+    return (
+        f"{origin}; Lip(grad g) = Lip(I - D) estimated {c.smoothness_raw:.4g} (a lower bound from Jacobian "
+        f"power iterations), {c.smoothness:.4g} with the {100 * c.margin:.0f} % margin, below 1: the guarantee "
+        "is conditional on this estimate"
+    )
+
+
 _DOUGLAS_RACHFORD = ("douglas_rachford", "admm")
 
 #: The routes, in order of preference within each algorithm.
@@ -412,6 +477,30 @@ ROUTES: tuple[Route, ...] = (
             "step); convergence of the whole sequence needs bounded iterates"
         ),
         uses_constants=False,
+    ),
+    Route(
+        name="weakly convex prox",
+        algorithms=("forward_backward",),
+        theorem=(
+            "D = I - grad g with Lip(grad g) = L < 1 is the prox of an L/(L+1)-weakly convex phi, "
+            "phi(D(z)) = g(z) - ||grad g(z)||^2 / 2 (Hurault, Leclaire & Papadakis, ICML 2022, Prop. 3.1, "
+            "number from memory; Gribonval & Nikolova, J. Math. Imaging Vis. 62 (2020)); the plain step is a "
+            "proximal gradient step on step f + phi, which decreases it while step < (2 - M) / L_f (derived, "
+            "docs/theory.md section 13); limit points are critical points (same paper, Thm. 4.1, from memory)"
+        ),
+        applies=_prox_applies,
+        iteration_map=_prox_map,
+        relaxed=_descent_constant,
+        assumption=(
+            "convergence to a critical point of the nonconvex objective step f + phi, not to a global "
+            "minimiser; the objective is evaluated along the run and its decrease checked at every step"
+        ),
+        objective=(
+            "F = step f + phi, phi(D(z)) = g(z) - ||grad g(z)||^2 / 2, decreases at every step by at least "
+            "{c:.4g} ||x_(k+1) - x_k||^2 (checked by the monitor)"
+        ),
+        scheme=ProxForwardBackward,
+        premise=_prox_premise,
     ),
 )
 

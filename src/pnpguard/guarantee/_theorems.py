@@ -134,3 +134,43 @@ def relaxed_contraction(relaxation: float, rho: float) -> float:
 def optimal_prox_parameter(mu: float, lipschitz: float) -> float:
     """``1 / sqrt(mu L)``, which minimises :func:`reflected_prox_lipschitz` (Giselsson & Boyd 2017)."""
     return 1.0 / math.sqrt(mu * lipschitz)
+
+
+def prox_weak_convexity(smoothness: float) -> float:
+    """Weak convexity ``M = L / (L + 1)`` of ``phi`` when ``D = I - grad g = prox_phi``.
+
+    For ``grad g`` ``L``-Lipschitz with ``L < 1``, ``D`` is the proximal
+    operator of a function ``phi`` such that ``phi + (M / 2) ||.||^2`` is
+    convex. Check value: for ``g = <x, Q x> / 2`` with symmetric ``Q`` of
+    spectrum in ``[-L, L]``, ``phi = <x, Q (I - Q)^-1 x> / 2`` has smallest
+    curvature ``-L / (1 + L)`` (derived).
+
+    References
+    ----------
+    .. [1] S. Hurault, A. Leclaire and N. Papadakis, "Proximal denoiser for
+       convergent plug-and-play optimization with nonconvex regularization",
+       ICML 2022, PMLR 162, Prop. 3.1 (numbering from memory), from
+       R. Gribonval and M. Nikolova, "A characterization of proximity
+       operators", J. Math. Imaging Vis. 62 (2020) 773-789.
+    """
+    return smoothness / (smoothness + 1.0)
+
+
+def prox_descent_constant(weak_convexity: float, step: float, lipschitz: float) -> float:
+    """``c = 1 - (M + step L) / 2`` in ``F(x+) <= F(x) - c ||x+ - x||^2`` for ``F = step f + phi``.
+
+    One step ``x+ = prox_phi(x - step grad f(x))`` with ``phi`` ``M``-weakly
+    convex and ``grad f`` ``L``-Lipschitz: ``u -> phi(u) + ||u - v||^2 / 2`` is
+    ``(1 - M)``-strongly convex and minimal at ``x+``, so comparing it at
+    ``x`` and ``x+`` gives ``phi(x+) <= phi(x) - <x+ - x, step grad f(x)>
+    - (1 - M / 2) ||x+ - x||^2``; the descent lemma bounds ``step f(x+)``;
+    the sum is the claim (derived; the argument of Beck 2017, Lemma 10.4,
+    with a weakly convex ``phi``). Positive iff ``step < (2 - M) / L``.
+
+    References
+    ----------
+    .. [1] A. Beck, *First-Order Methods in Optimization*, SIAM 2017, Lemma
+       10.4 (sufficient decrease of the proximal gradient step; numbering from
+       memory).
+    """
+    return 1.0 - (weak_convexity + step * lipschitz) / 2.0

@@ -90,10 +90,17 @@ class _Run:
         driven = _DrivenTolerance.of(self.denoiser, tolerance)
         if guarantee is not None and tolerance > 0:
             guarantee = _inexact_guarantee(guarantee, tolerance, driven is not None)
-        scheme = self.algorithm.scheme(self.fidelity, self.denoiser if driven is None else driven, self.step)
+        certified = (None, math.nan) if guarantee is None else guarantee.map_constant(self.step, self.relaxation)
+        denoiser = self.denoiser if driven is None else driven
+        rule = None if guarantee is None else guarantee.rule
+        if rule is not None and rule.scheme is not None:
+            # The route watches its own objective (the prox route: F = step f + phi).
+            scheme = rule.scheme(self.fidelity, denoiser, self.step, certified[1])
+        else:
+            scheme = self.algorithm.scheme(self.fidelity, denoiser, self.step)
+        watches_objective = self.algorithm.watches == "objective" or certified[0] == "descent"
         start = self.algorithm.start(self.fidelity, self.x0, self.step)
         o = self.options
-        certified = (None, math.nan) if guarantee is None else guarantee.map_constant(self.step, self.relaxation)
         scale = max(norm(start), norm(self.fidelity.y), 1e-12)
         # An inexact denoiser (RMS error <= tol per pixel per call) moves T v by at most
         # error_gain tol sqrt(N) (the Algorithm record says how often the error enters T),
@@ -105,7 +112,7 @@ class _Run:
             certified[1],
             scale,
             2.0 * self.relaxation * tolerance * per_tolerance,
-            fixed_point=self.algorithm.watches == "fixed_point",
+            fixed_point=not watches_objective,
         )
         objectives: list[float] = []
         # Without a driver the error stays at `tolerance`: residuals below what it allows
@@ -135,9 +142,9 @@ class _Run:
             step_norm = norm(step)
             if blow is None:
                 new_flags = monitor.observe(iteration, v, size, step, step_norm)
-                if self.algorithm.watches == "objective":
+                if watches_objective:
                     descent = scheme.last
-                    if not objectives:
+                    if not objectives and math.isfinite(descent.objective_before):
                         objectives.append(descent.objective_before)
                     new_flags += monitor.descent(iteration, descent)
             else:
@@ -162,7 +169,7 @@ class _Run:
             relative.append(residual / max(size, 1e-300))
             size = candidate_size
             v, estimate = candidate, candidate_estimate
-            if objectives:
+            if watches_objective:
                 objectives.append(scheme.last.objective_after)
             if self.reference is not None:
                 metrics["psnr"].append(psnr(estimate, self.reference, data_range=self.data_range))

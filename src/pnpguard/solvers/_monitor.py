@@ -274,9 +274,9 @@ class Monitor:
         if step.accepted:
             return []
         message = (
-            f"no step down to tau = {step.step:.3g} decreases F = f + g enough: F went from "
+            f"the step does not decrease the objective enough (step down to {step.step:.3g}): F went from "
             f"{step.objective_before:.8g} to {step.objective_after:.8g}; the map is not a gradient step "
-            "on the stated potential (or the potential is not smooth)"
+            "on the stated potential (or the potential is not smooth, or an estimated constant is too small)"
         )
         witness = (step.point_before, step.point_after)
         return [self._flag("assumption_broken", iteration, message, step.objective_after - step.objective_before, witness)]

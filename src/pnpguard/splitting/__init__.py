@@ -14,6 +14,7 @@ from ._schemes import (
     DouglasRachford,
     ForwardBackward,
     PotentialDescent,
+    ProxForwardBackward,
     Scheme,
 )
 from ._table import ALGORITHMS, Algorithm, algorithm
@@ -28,6 +29,7 @@ __all__ = [
     "DouglasRachford",
     "ForwardBackward",
     "PotentialDescent",
+    "ProxForwardBackward",
     "Scheme",
     "algorithm",
 ]

@@ -25,6 +25,7 @@ References
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from typing import Any, Protocol
 
@@ -190,3 +191,57 @@ class PotentialDescent:
     def denoiser_input(self, v: torch.Tensor) -> torch.Tensor:
         """What the denoiser is applied to at ``v``: ``v`` itself (``D(v) = v - grad g(v)``)."""
         return v
+
+
+class ProxForwardBackward:
+    r"""Forward-backward ``x+ = D(x - step grad f(x))`` watched through ``F = step f + phi``.
+
+    For ``D = I - grad g`` with ``grad g`` ``L``-Lipschitz, ``L < 1``, ``D`` is
+    the proximal map of a weakly convex ``phi`` with
+    ``phi(D(z)) = g(z) - ||grad g(z)||^2 / 2`` (Hurault, Leclaire & Papadakis,
+    ICML 2022, from Gribonval & Nikolova 2020), so the plain PnP
+    forward-backward step is a proximal gradient step on ``step f + phi`` and
+    both values are computable at every iterate. Each call records a
+    :class:`DescentStep` with the test ``F(x+) <= F(x) - c ||x+ - x||^2``
+    (``c`` = ``decrease``, from the guarantee); the first iterate has no
+    ``phi`` value before it (the start need not be an output of ``D``), so
+    its test is skipped.
+
+    For a denoiser the library built from ``g``, ``x+`` comes from the kept
+    autograd graph (one forward and one backward pass); for a user's claimed
+    pairing the user's map is run and ``g`` only judges it, with
+    ``grad g(z)`` read as ``z - D(z)``.
+    """
+
+    def __init__(self, fidelity: LeastSquares, denoiser: Denoiser, step: float, decrease: float) -> None:
+        self.fidelity = fidelity
+        self.denoiser = denoiser
+        self.step = step
+        self.decrease = decrease
+        self.last: DescentStep | None = None
+        self._built = any(f.kind == "gradient_step" and f.verified for f in denoiser.facts)
+        self._point: torch.Tensor | None = None
+        self._objective = math.nan
+
+    def __call__(self, v: torch.Tensor) -> tuple[torch.Tensor, torch.Tensor]:
+        z = self.denoiser_input(v)
+        here = self.denoiser.potential_at(z)
+        if here is None:
+            raise ValueError(
+                f"denoiser {self.denoiser.name!r} has no potential: the prox route needs D = I - grad g "
+                "with g computable"
+            )
+        image = z - here.gradient() if self._built else self.denoiser.apply(z)
+        phi = here.total - 0.5 * float(torch.linalg.vector_norm((z - image).double())) ** 2
+        after = self.step * self.fidelity.apply_value(image) + phi
+        before = self._objective if self._point is v else math.nan
+        moved = float(torch.linalg.vector_norm((image - v).double())) ** 2
+        allowance = 64.0 * torch.finfo(v.dtype).eps * (abs(after) + (0.0 if math.isnan(before) else abs(before)))
+        accepted = math.isnan(before) or after <= before - self.decrease * moved + allowance
+        self.last = DescentStep(before, after, self.step, 1, accepted, v, image)
+        self._point, self._objective = image, after
+        return image, image
+
+    def denoiser_input(self, v: torch.Tensor) -> torch.Tensor:
+        """What the denoiser is applied to at ``v``: ``v - step grad f(v)``."""
+        return v - self.step * self.fidelity.apply_grad(v)
