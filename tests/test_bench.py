@@ -405,3 +405,21 @@ def test_tomography_results_carry_the_caution():
     run = bench.run_suite(suite, methods=["fbp"])
     assert run.document["caution"] == bench.CAUTION
     assert "hallucinate" in bench.markdown_report(run.document)
+
+
+def test_descent_runs_off_masks_start_from_a_stronger_first_phase():
+    # Strength annealing for the gradient-step network: the run at the tuned strength starts
+    # where a short run at the registry's first-phase strength ended (not at A^T y / ||A||^2),
+    # and the guarantee is the potential route's for the second phase.
+    from pnpguard.bench._methods import DenoiserCache, Method, run_pnp
+
+    problem = bench.get_task("deblur-gaussian-1pct").problem((24, 24))
+    entry = bench.get_denoiser("gradient-step-cnn")
+    assert entry.first_phase is not None and entry.first_phase > 0.04
+    method = Method("pgd/gradient-step-cnn", "pnp", "pgd", "gradient-step-cnn")
+    cache = DenoiserCache(problem, budget=20, seed=0)
+    outcome = run_pnp(method, problem, 0.04, denoisers=cache, max_iter=3, tol=1e-4)
+    assert outcome.status == "ok" and outcome.guarantee.route == "potential"
+    assert outcome.parameters["start"].startswith(f"first phase at strength {entry.first_phase:g}")
+    # The first phase's denoiser was built and checked at its own strength.
+    assert ("gradient-step-cnn", entry.first_phase) in cache._entries

@@ -225,4 +225,4 @@ def test_a_false_potential_claim_on_the_prox_route_is_caught_by_the_monitor():
     assert not torch.equal(before, after)
     # Reproducible: the same run flags the same first iteration.
     again = pg.forward_backward(fidelity, claimed, report=report, max_iter=20, tol=1e-12)
-    assert [f for f in again.flags if f.kind == "assumption_broken"][0].iteration == broken[0].iteration
+    assert next(f for f in again.flags if f.kind == "assumption_broken").iteration == broken[0].iteration

@@ -26,6 +26,10 @@ from . import _baselines as bl
 from ._registry import get_denoiser, shipped_denoisers
 from ._tasks import Problem
 
+#: Iteration cap and relative tolerance of the first, stronger phase of an annealed descent run.
+FIRST_PHASE_MAX_ITER = 50
+FIRST_PHASE_TOL = 1e-3
+
 #: Classical baselines: name -> (families it applies to, tuned parameter names).
 BASELINES: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
     "tikhonov": (("deblurring", "inpainting", "super-resolution", "tomography"), ("weight",)),
@@ -196,13 +200,25 @@ def run_pnp(
     denoiser, report, check_seconds = denoisers.get(method.denoiser, strength)
     parameters: dict[str, Any] = {"strength": strength}
     options: dict[str, Any] = {}
-    if algorithm(method.algorithm).watches == "objective" and isinstance(problem.op, PixelMask):
-        # A descent on a nonconvex objective from the zero-filled start barely moves the
-        # missing pixels; start from their interpolation (common practice). The guarantee
-        # covers the run from there.
-        options["x0"] = interpolated_start(problem.fidelity)
-        parameters["start"] = "interpolated"
+    first_phase = get_denoiser(method.denoiser).first_phase
     try:
+        if algorithm(method.algorithm).watches == "objective" and isinstance(problem.op, PixelMask):
+            # A descent on a nonconvex objective from the zero-filled start barely moves the
+            # missing pixels; start from their interpolation (common practice). The guarantee
+            # covers the run from there.
+            options["x0"] = interpolated_start(problem.fidelity)
+            parameters["start"] = "interpolated"
+        elif algorithm(method.algorithm).watches == "objective" and first_phase is not None and first_phase > strength:
+            # Strength annealing (common practice): a short run at a larger strength finds the
+            # basin; the guarantee covers the run at the tuned strength from its result.
+            strong, strong_report, strong_seconds = denoisers.get(method.denoiser, first_phase)
+            check_seconds += strong_seconds
+            phase = reconstruct(
+                method.algorithm, problem.fidelity, strong, report=strong_report,
+                max_iter=FIRST_PHASE_MAX_ITER, tol=FIRST_PHASE_TOL,
+            )
+            options["x0"] = phase.x
+            parameters["start"] = f"first phase at strength {first_phase:g} ({phase.iterations} iterations)"
         result = reconstruct(
             method.algorithm, problem.fidelity, denoiser, report=report, max_iter=max_iter, tol=tol, **options
         )

@@ -47,6 +47,11 @@ class ShippedDenoiser:
         estimated by the pair search of :func:`pnpguard.check_denoiser`.
     build : callable
         ``build(strength, shape) -> Denoiser``.
+    first_phase : float or None
+        For descent runs (the potential route) on forward models other than
+        masks: a first phase at this larger strength, whose result starts the
+        run at the tuned strength (strength annealing, common practice; the
+        guarantee covers the second phase from that start). None: no phase.
     """
 
     name: str
@@ -56,6 +61,7 @@ class ShippedDenoiser:
     grid: tuple[float, ...]
     structure: str
     build: Callable[[float, Shape], Denoiser]
+    first_phase: float | None = None
 
     def make(self, strength: float, shape: Shape) -> Denoiser:
         """Build the denoiser at ``strength`` (a positive number) for images of ``shape``."""
@@ -158,6 +164,7 @@ _REGISTRY: dict[str, ShippedDenoiser] = {
             _NOISE_GRID,
             "black box",
             _gradient_step,
+            first_phase=0.15,
         ),
     )
 }
