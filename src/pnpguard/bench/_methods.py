@@ -24,12 +24,12 @@ from ..splitting import ALGORITHMS, algorithm
 from ..starts import interpolated_start
 from . import _baselines as bl
 from ._registry import get_denoiser, shipped_denoisers
-from ._tasks import Problem
+from ._tasks import USER_FAMILY, Problem
 
 #: Classical baselines: name -> (families it applies to, tuned parameter names).
 BASELINES: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
-    "tikhonov": (("deblurring", "inpainting", "super-resolution", "tomography"), ("weight",)),
-    "tv-regularised": (("deblurring", "inpainting", "super-resolution", "tomography"), ("weight",)),
+    "tikhonov": (("deblurring", "inpainting", "super-resolution", "tomography", USER_FAMILY), ("weight",)),
+    "tv-regularised": (("deblurring", "inpainting", "super-resolution", "tomography", USER_FAMILY), ("weight",)),
     "richardson-lucy": (("deblurring",), ("iterations",)),
     "interpolation": (("inpainting",), ("method",)),
     "bicubic": (("super-resolution",), ()),
