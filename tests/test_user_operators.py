@@ -166,6 +166,11 @@ def test_a_claimed_norm_is_a_claim_and_a_false_one_is_refused():
         (lambda: pg.as_operator(np.ones((35, 48), dtype=complex), IN, OUT), TypeError, "real numbers"),
         (lambda: pg.as_operator("A.npy", IN, OUT), TypeError, "`matrix` must be"),
         (lambda: pg.as_operator(lambda x: x, IN, IN), ValueError, "needs its adjoint"),
+        (
+            lambda: pg.as_operator(scipy.sparse.linalg.LinearOperator((48, 48), matvec=lambda v: v), IN, IN),
+            ValueError,
+            "has no adjoint",
+        ),
         (lambda: pg.as_operator(np.ones((35, 48)), (8, 6.0), OUT), TypeError, "`in_shape`"),
         (lambda: pg.as_operator(np.ones((35, 48)), IN, OUT, norm=-1.0), ValueError, "`norm`"),
         (lambda: pg.as_operator(np.ones((35, 48)), IN, OUT, backend="torch"), ValueError, "`backend`"),

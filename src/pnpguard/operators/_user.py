@@ -415,7 +415,11 @@ def as_operator(
     if not isinstance(name, str):
         raise TypeError(f"`name` must be a string, got {type(name).__name__}")
     op = _wrap(matrix, in_shape, out_shape, adjoint, backend, name)
-    mismatch = adjoint_mismatch(op, seed=seed)
+    try:
+        mismatch = adjoint_mismatch(op, seed=seed)
+    except NotImplementedError as error:
+        # scipy's LinearOperator without rmatvec/rmatmat.
+        raise ValueError(f"the operator has no adjoint: {error}; define rmatvec (the transpose product)") from None
     if not mismatch <= ADJOINT_RTOL:
         raise ValueError(
             f"the adjoint does not match the forward map: <A x, y> and <x, A^T y> differ by a relative "
