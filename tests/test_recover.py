@@ -14,6 +14,7 @@ import skimage.metrics
 import tifffile
 
 import pnpguard as pg
+import pnpguard._recover
 import pnpguard.check
 from pnpguard import _imagefiles
 from pnpguard.cli import main
@@ -249,3 +250,18 @@ def test_integer_scaling_round_trips(tmp_path, dtype, high):
     np.testing.assert_allclose(read.values, stored / high)  # analytic: v / (2^bits - 1)
     _imagefiles.write_image(tmp_path / "again.tif", read.values, read)
     np.testing.assert_array_equal(tifffile.imread(tmp_path / "again.tif"), stored)
+
+
+def test_planar_colour_tiff_is_colour_and_a_psf_can_be_an_image(tmp_path):
+    planes = (255 * np.stack([pg.phantoms.cells(16, seed=s) for s in range(3)])).round().astype(np.uint8)
+    tifffile.imwrite(tmp_path / "planar.tif", planes, photometric="rgb", planarconfig="separate")
+    read = _imagefiles.read_image(tmp_path / "planar.tif")
+    assert read.layout == "colour"
+    np.testing.assert_array_equal(read.values, planes / 255.0)
+    # A PSF saved as a 16-bit PNG gives the convolution with the normalised kernel.
+    stored = np.rint(65535 * PSF / PSF.max()).astype(np.uint16)
+    iio.imwrite(tmp_path / "psf.png", stored)
+    op, model = pnpguard._recover.psf_operator(str(tmp_path / "psf.png"), (SIDE, SIDE))
+    expected = stored / stored.sum()  # analytic: the scaling cancels in the normalisation
+    np.testing.assert_allclose(op.psf, expected, rtol=1e-12)
+    assert model["sha256"] == _sha(tmp_path / "psf.png")

@@ -116,7 +116,11 @@ def _read_raw(file: Path, what: str) -> np.ndarray:
         if suffix in TIFF_SUFFIXES:
             import tifffile
 
-            return tifffile.imread(file)
+            with tifffile.TiffFile(file) as tiff:
+                series = tiff.series[0]
+                raw = series.asarray()
+                # Colour samples stored as separate planes ("SYX") come channel-first.
+                return np.moveaxis(raw, 0, -1) if series.axes == "SYX" else raw
         import imageio.v3 as iio
 
         with warnings.catch_warnings():
