@@ -192,6 +192,8 @@ def _bad_inputs(tmp_path: Path) -> list[tuple[list[str], str]]:
         (["frame.png", "--psf", "psf.npy", "-o", "blocked.png", *sigma], "is a directory"),
         (["frame.png", "--psf", "psf.npy", "-o", "frame.tif", *sigma], "data's kind of suffix"),
         (["frame.png", "--psf", "psf.npy", "--image-shape", *side, *sigma], "--image-shape H W goes with --matrix"),
+        (["frame.png", "--psf", "psf.npy", "-o", "frame.png", "--overwrite", *sigma], "is the data file"),
+        (["bright.tif", "--psf", "psf.npy", "--range", "0", "inf", *sigma], "must be finite"),
     ]
 
 

@@ -190,8 +190,8 @@ def read_image(path: str | Path, *, what: str = "image", value_range: tuple[floa
     else:
         info = np.iinfo(raw.dtype)
         low, high = (float(info.min) if info.min < 0 else 0.0, float(info.max)) if value_range is None else value_range
-        if not high > low:
-            raise ImageFileError(f"the value range must have low < high, got [{low:g}, {high:g}]")
+        if not (np.isfinite(low) and np.isfinite(high) and high > low):
+            raise ImageFileError(f"the value range must be finite with low < high, got [{low:g}, {high:g}]")
         smallest, largest = float(values.min()), float(values.max())
         if smallest < low or largest > high:
             raise ImageFileError(

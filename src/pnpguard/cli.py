@@ -424,6 +424,8 @@ def _recover(args: argparse.Namespace) -> int:
         raise UsageError(f"argument --output: {str(output)!r} must have the data's kind of suffix "
                          f"({data_path.suffix}), to keep its format and bit depth")
     record_path = output.with_suffix(".json")
+    if output.resolve() == data_path.resolve():
+        raise UsageError(f"argument --output: {str(output)!r} is the data file; choose another name")
     if (args.image_shape is None) != (args.matrix is None):
         raise UsageError("--image-shape H W goes with --matrix (the matrix's columns are the image's pixels)")
     if args.norm is not None and args.matrix is None:
