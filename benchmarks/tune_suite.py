@@ -5,17 +5,8 @@ task the problem is built from the task's *tuning* phantom and seed (the
 benchmark uses a different seed, hence a different phantom instance, mask and
 noise), so no benchmark number is tuned on its own ground truth.
 
-What is tuned, by PSNR against the tuning phantom:
-
-- each shipped denoiser's strength, once per task, shared by the three PnP
-  algorithms (so one denoiser check per task serves all three): the strength
-  whose best guarded run (forward-backward, Douglas-Rachford or ADMM, with the
-  step and relaxation the guarantee recommends) is highest. A coarse pass
-  over every other value of the registry's strength grid, then the two grid
-  neighbours of the best value;
-- Tikhonov and TV-regularised weights on a geometric grid (ratio sqrt(10));
-- Richardson-Lucy iterations, the interpolation method, the FBP filter and
-  cutoff (small exhaustive grids). Bicubic upsampling has no parameter.
+What is tuned, by PSNR against the tuning phantom, is described in
+``pnpguard/bench/_tuning.py`` (shared with suites holding users' own tasks).
 
 Step sizes are not tuned: the guarantee fixes them (forward-backward step
 1/L; Douglas-Rachford / ADMM gamma = 1/L). For proximal denoisers the step
@@ -35,27 +26,15 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
 import time
 from datetime import datetime, timezone
 from pathlib import Path
 
-import numpy as np
 import torch
 
-from pnpguard.bench import (
-    BASELINES,
-    SHIPPED_TUNED,
-    denoiser_names,
-    get_denoiser,
-    get_task,
-    methods_for,
-    task_names,
-)
-from pnpguard.bench._methods import DenoiserCache, run_baseline, run_pnp
+from pnpguard.bench import SHIPPED_TUNED, denoiser_names, get_denoiser, get_task, task_names, tune_task
 from pnpguard.bench._results import environment
 from pnpguard.bench._tuned import FORMAT, FORMAT_VERSION
-from pnpguard.metrics import psnr
 
 #: Shape and iteration cap of the tuning runs (the quick suite's).
 SHAPE = (64, 64)
@@ -63,79 +42,6 @@ MAX_ITER = 150
 TOL = 1e-4
 #: Denoiser calls of each black-box check during tuning (the quick suite's budget).
 CHECK_BUDGET = 60
-
-WEIGHTS_TIKHONOV = tuple(10.0 ** (k / 2) for k in range(-12, 1))  # 1e-6 .. 1
-WEIGHTS_TV = tuple(10.0 ** (k / 2) for k in range(-10, -1))  # 1e-5 .. 0.03
-RL_ITERATIONS = (5, 10, 20, 40, 80, 160)
-INTERPOLATION = ("nearest", "linear", "cubic")
-FBP = tuple(
-    {"filter": f, "cutoff": c}
-    for f in ("ramp", "shepp-logan", "cosine", "hamming", "hann")
-    for c in (1.0, 0.8, 0.6)
-)
-
-
-def _score(x: np.ndarray, truth: np.ndarray) -> float:
-    return float(psnr(x, truth, data_range=1.0))
-
-
-def baseline_grid(name: str) -> list[dict]:
-    if name == "tikhonov":
-        return [{"weight": w} for w in WEIGHTS_TIKHONOV]
-    if name == "tv-regularised":
-        return [{"weight": w} for w in WEIGHTS_TV]
-    if name == "richardson-lucy":
-        return [{"iterations": n} for n in RL_ITERATIONS]
-    if name == "interpolation":
-        return [{"method": m} for m in INTERPOLATION]
-    if name == "fbp":
-        return [dict(p) for p in FBP]
-    return [{}]
-
-
-def tune_baseline(name: str, problem) -> dict:
-    best = None
-    for parameters in baseline_grid(name):
-        score = _score(run_baseline(name, problem, parameters).x, problem.truth)
-        if best is None or score > best[1]:
-            best = (parameters, score)
-    return {"parameters": best[0], "psnr": round(best[1], 3)}
-
-
-def tune_denoiser(name: str, problem, methods) -> dict:
-    entry = get_denoiser(name)
-    grid = entry.grid
-    chosen = [m for m in methods if m.denoiser == name]
-    denoisers = DenoiserCache(problem, budget=CHECK_BUDGET, seed=0)
-    scores: dict[int, tuple[float, str | None]] = {}
-
-    def evaluate(index: int) -> None:
-        if index in scores or not 0 <= index < len(grid):
-            return
-        best = (-math.inf, None)
-        for method in chosen:
-            outcome = run_pnp(method, problem, grid[index], denoisers=denoisers, max_iter=MAX_ITER, tol=TOL)
-            if outcome.status == "ok":
-                score = _score(outcome.x, problem.truth)
-                if score > best[0]:
-                    best = (score, method.name)
-        scores[index] = best
-        text = f"{best[0]:.2f} dB ({best[1]})" if best[1] else "refused by the guard"
-        print(f"    {name} strength {grid[index]:g}: {text}", flush=True)
-
-    for index in range(0, len(grid), 2):
-        evaluate(index)
-    top = max(scores, key=lambda i: (scores[i][0], -i))
-    evaluate(top - 1)
-    evaluate(top + 1)
-    top = max(scores, key=lambda i: (scores[i][0], -i))
-    score, method = scores[top]
-    return {
-        "strength": grid[top],
-        "psnr": round(score, 3) if math.isfinite(score) else None,
-        "method": method,
-        "note": None if method else "refused by the guard at every strength tried",
-    }
 
 
 def main() -> None:
@@ -189,21 +95,15 @@ def main() -> None:
     for name in args.tasks:
         task = get_task(name)
         start = time.perf_counter()
-        problem = task.problem(SHAPE, tuning=True)
-        methods = methods_for(task.family)
         entry = data["tasks"].setdefault(name, {"denoisers": {}, "baselines": {}})
-        entry.update(
-            phantom=task.tuning_phantom, seed=task.tuning_seed, shape=list(SHAPE), max_iter=MAX_ITER
-        )
         print(f"{name} (tuning phantom {task.tuning_phantom}, seed {task.tuning_seed})", flush=True)
-        if tune_baselines:
-            for baseline, (families, _) in BASELINES.items():
-                if task.family in families:
-                    entry["baselines"][baseline] = tune_baseline(baseline, problem)
-                    print(f"  {baseline}: {entry['baselines'][baseline]}", flush=True)
-        for denoiser in denoisers:
-            entry["denoisers"][denoiser] = tune_denoiser(denoiser, problem, methods)
-            print(f"  {denoiser}: {entry['denoisers'][denoiser]}", flush=True)
+        fresh = tune_task(
+            task, shape=SHAPE, max_iter=MAX_ITER, tol=TOL, check_budget=CHECK_BUDGET,
+            denoisers=denoisers, baselines=tune_baselines, say=lambda text: print(text, flush=True),
+        )
+        entry.update(phantom=fresh["phantom"], seed=fresh["seed"], shape=fresh["shape"], max_iter=MAX_ITER)
+        entry["baselines"].update(fresh["baselines"])
+        entry["denoisers"].update(fresh["denoisers"])
         print(f"  {time.perf_counter() - start:.1f} s", flush=True)
         ordered = {key: data[key] for key in data if key != "tasks"} | {"tasks": data["tasks"]}
         args.output.write_text(json.dumps(ordered, indent=1) + "\n")

@@ -36,6 +36,7 @@ POSITIVE_NUMBERS = {
                                             data_range=x)),
     "shipped denoiser": ("strength", lambda x: bench.get_denoiser("wavelet").make(x, SHAPE)),
     "Ellipse": ("a", lambda x: ph.Ellipse(0.0, 0.0, x, 0.5)),
+    "as_operator": ("norm", lambda x: pg.as_operator(np.eye(64), SHAPE, SHAPE, norm=x)),
 }
 
 # A positive integer, by name.

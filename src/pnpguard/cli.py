@@ -8,8 +8,10 @@ Verbs::
     pnpguard compare OLD NEW               compare two result files (exit 1 on a regression)
     pnpguard report RESULTS                write a markdown report with figures
     pnpguard list WHAT                     list suites, tasks, denoisers or phantoms
+    pnpguard recover DATA --psf|--mask|--matrix FILE --sigma S
+                                           reconstruct from files, write the result and a record
 
-Exit status: 0 on success, 1 when ``compare`` finds a regression, 2 on a
+Exit status: 0 on success, 1 when ``compare`` finds a regression or ``recover`` is refused, 2 on a
 usage error (printed as one line starting with ``pnpguard: error:``). Values are
 checked while parsing, so a mistake never starts a run; unknown arguments are
 refused with the verb's usage line.
@@ -404,6 +406,119 @@ def _list(args: argparse.Namespace) -> int:
     return 0
 
 
+def _recover(args: argparse.Namespace) -> int:
+    from . import _recover as rec
+    from ._caution import CAUTION
+    from ._imagefiles import NPY_SUFFIXES, PNG_SUFFIXES, TIFF_SUFFIXES, ImageFileError, read_image, write_image
+    from .bench import get_denoiser
+    from .check import check_denoiser
+    from .fidelity import LeastSquares
+    from .guarantee import Refused, admissible
+    from .solvers import reconstruct
+
+    # Everything that can be refused is refused here, before any work.
+    data_path = Path(args.data)
+    output = Path(args.output) if args.output else data_path.with_name(f"{data_path.stem}-recovered{data_path.suffix}")
+    if not any(data_path.suffix.lower() in k and output.suffix.lower() in k
+               for k in (PNG_SUFFIXES, TIFF_SUFFIXES, NPY_SUFFIXES)):
+        raise UsageError(f"argument --output: {str(output)!r} must have the data's kind of suffix "
+                         f"({data_path.suffix}), to keep its format and bit depth")
+    record_path = output.with_suffix(".json")
+    if output.resolve() == data_path.resolve():
+        raise UsageError(f"argument --output: {str(output)!r} is the data file; choose another name")
+    if (args.image_shape is None) != (args.matrix is None):
+        raise UsageError("--image-shape H W goes with --matrix (the matrix's columns are the image's pixels)")
+    if args.norm is not None and args.matrix is None:
+        raise UsageError("--norm (a claimed operator norm) goes with --matrix")
+    try:
+        rec.check_writable([output, record_path], args.overwrite)
+        data = read_image(args.data, what="data", value_range=tuple(args.range) if args.range else None)
+        if args.psf is not None:
+            op, model = rec.psf_operator(args.psf, data.frame_shape)
+        elif args.mask is not None:
+            op, model = rec.mask_operator(args.mask, data.frame_shape)
+        else:
+            op, model = rec.matrix_operator(args.matrix, tuple(args.image_shape), data.frame_shape, args.norm)
+    except ImageFileError as error:
+        raise UsageError(str(error)) from None
+    user = ":" in args.denoiser
+    if user:
+        denoiser = _user_denoiser(args.denoiser, args.strength)
+        how = "user's"
+    else:
+        try:
+            entry = get_denoiser(args.denoiser)
+        except ValueError as error:
+            raise UsageError(f"{error}, or give a Python callable as module:attribute") from None
+        strength = entry.default_strength if args.strength is None else args.strength
+        try:
+            denoiser = entry.make(strength, op.in_shape)
+        except ValueError as error:
+            raise UsageError(f"denoiser {args.denoiser!r} cannot take {op.in_shape} images: {error}") from None
+        how = f"strength {strength:g} ({'given' if args.strength is not None else 'registry default'})"
+    notes = []
+    if data.layout == "colour":
+        notes.append(
+            f"colour: the {data.values.shape[0]} channels are reconstructed as one (1, C, H, W) batch; "
+            + ("the denoiser is given that batch as it is" if user
+               else f"{args.denoiser} is a grey-level denoiser, applied to each channel separately")
+        )
+    elif data.layout == "stack":
+        notes.append(f"stack: the {data.values.shape[0]} frames are reconstructed as one (N, 1, H, W) batch")
+    bound = op.norm_bound()
+    print(f"data {args.data}: {data.layout} {'x'.join(map(str, data.values.shape))}, {data.scaling()}")
+    print(f"forward model: {op!r}; norm {bound.value:.6g} ({bound.basis}: {bound.method})")
+    print(f"denoiser {denoiser.name}: {how}")
+    for note in notes:
+        print(f"note: {note}")
+    print()
+
+    fidelity = LeastSquares(op, rec.as_batch(data.values, data.layout), sigma=args.sigma)
+    # One check per denoiser and strength, on one frame (channel) of the first iterate: the
+    # denoiser acts on each frame alike, so its constants hold for the whole batch.
+    sample = fidelity.start_image().reshape(-1, *op.in_shape)[0]
+    try:
+        report = check_denoiser(denoiser, sample, budget=args.budget, seed=args.seed)
+    except Exception as error:
+        if not user:
+            raise
+        raise UsageError(f"the denoiser {args.denoiser!r} failed: {type(error).__name__}: {error}") from None
+    print(f"{report}\n")
+    try:
+        guarantee = admissible(args.algorithm, fidelity, report, margin=args.margin)
+    except Refused as refusal:
+        print(f"guarantee for {args.algorithm}: REFUSED (nothing written)")
+        print("\n".join(f"  {line}" for line in str(refusal).splitlines()))
+        return 1
+    print(f"{guarantee}\n")
+    progress = sys.stderr.isatty() if args.progress is None else args.progress
+    result = reconstruct(args.algorithm, fidelity, denoiser, report=report, max_iter=args.max_iter, tol=args.tol,
+                         margin=args.margin, seed=args.seed, progress=progress)
+    print(result)
+    values = rec.from_batch(result.x, data.layout)
+    parameters = {"sigma": args.sigma, "denoiser": args.denoiser, "denoiser_strength": how,
+                  "algorithm": args.algorithm, "max_iter": args.max_iter, "tol": args.tol,
+                  "budget": args.budget, "seed": args.seed, "margin": args.margin}
+    written: dict[str, int] = {}
+
+    def write_output(path: Path) -> None:
+        written["clipped"] = write_image(path, values, data)
+
+    def write_document(path: Path) -> None:
+        rec.write_record(path, rec.record(data=data, model=model, op=op, parameters=parameters, result=result,
+                                          output=output, clipped=written["clipped"], notes=notes))
+
+    try:
+        rec.write_all([(output, write_output), (record_path, write_document)])
+    except OSError as error:
+        raise UsageError(f"cannot write the outputs ({error.strerror or error}); nothing was written") from None
+    clipped = written["clipped"]
+    print(f"\nwrote {output} ({data.storing()}" + (f"; {clipped} values clipped" if clipped else "")
+          + f") and {record_path}")
+    print(CAUTION)
+    return 0
+
+
 def _algorithm(text: str) -> str:
     """An algorithm's API name from its name or short name (argparse type)."""
     from .splitting import algorithm
@@ -548,6 +663,57 @@ def build_parser() -> argparse.ArgumentParser:
                                description="List what the other verbs accept by name.")
     listing.add_argument("what", choices=("algorithms", "denoisers", "phantoms", "suites", "tasks"))
     listing.set_defaults(run=_list)
+    recover = verbs.add_parser(
+        "recover",
+        help="reconstruct from data files with a guarantee, write the result and a JSON record",
+        description="Reconstruct from your own files: the data (PNG, TIFF including 16-bit and "
+        "stacks, or .npy; colour images and stacks run as one batch) and the forward model (a PSF "
+        "file, a binary mask file or a system matrix as .npy or sparse .npz). The denoiser is "
+        "checked once, the guarantee (or the refusal) printed, the guarded iteration run, and the "
+        "result written in the data's format and bit depth with a JSON record beside it "
+        "(checksums, parameters, check, guarantee, monitor flags, versions). Exit status 1 when "
+        "the guarantee is refused (nothing is written).",
+    )
+    recover.add_argument("data", help="measured data: .png, .tif/.tiff or .npy (integer pixels are "
+                         "scaled to [0, 1] by their range)")
+    model = recover.add_mutually_exclusive_group(required=True)
+    model.add_argument("--psf", help="point-spread function (.npy or an image), normalised to unit sum; "
+                       "periodic convolution")
+    model.add_argument("--mask", help="binary mask of observed pixels (.npy or an image), 0 = missing")
+    model.add_argument("--matrix", help="system matrix: dense .npy or sparse .npz (scipy.sparse.save_npz), "
+                       "rows = data entries, columns = pixels, both row-major")
+    recover.add_argument("--image-shape", nargs=2, type=_positive_int, metavar=("H", "W"),
+                         help="image size the matrix's columns describe (with --matrix)")
+    recover.add_argument("--norm", type=_positive_float, default=None,
+                         help="your claim of the matrix's 2-norm (recorded as a claim; default: "
+                         "certified or estimated)")
+    recover.add_argument("--sigma", type=_positive_float, required=True,
+                         help="noise standard deviation in the data's units after scaling")
+    recover.add_argument("--range", nargs=2, type=float, metavar=("LOW", "HIGH"), default=None,
+                         help="range of the integer pixel values (e.g. 0 4095 for 12-bit data in a "
+                         "16-bit file; default: the full range of the type)")
+    recover.add_argument("--denoiser", default="wavelet",
+                         help="shipped denoiser name or module:attribute (default: %(default)s)")
+    recover.add_argument("--strength", type=_positive_float, default=None,
+                         help="denoiser strength (default: the registry's)")
+    recover.add_argument("--algorithm", type=_algorithm, default="forward_backward",
+                         help="algorithm by name or short name (default: %(default)s)")
+    recover.add_argument("--output", "-o", default=None,
+                         help="result file, same kind as the data (default: <data>-recovered.<suffix>); "
+                         "the JSON record is written beside it with suffix .json")
+    recover.add_argument("--overwrite", action="store_true", help="replace existing outputs")
+    recover.add_argument("--max-iter", type=_positive_int, default=300, help="iteration cap (default: %(default)s)")
+    recover.add_argument("--tol", type=_positive_float, default=1e-4,
+                         help="relative fixed-point residual at which to stop (default: %(default)s)")
+    recover.add_argument("--budget", type=_integer(MIN_BUDGET), default=200,
+                         help=f"denoiser calls for a black-box check, at least {MIN_BUDGET} (default: %(default)s)")
+    recover.add_argument("--seed", type=_seed, default=0, help="seed of the check's search (default: 0)")
+    recover.add_argument("--margin", type=_fraction, default=0.05,
+                         help="relative inflation of estimated constants, in [0, 1) (default: %(default)s)")
+    recover.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
+                         help="progress bar on standard error (default: when it is a terminal)")
+    recover.set_defaults(run=_recover)
+
     for verb in verbs.choices.values():
         # One line naming everything the verb accepts, for the unknown-argument error.
         verb.set_defaults(usage=" ".join(verb.format_usage().split()))

@@ -127,8 +127,14 @@ class LeastSquares:
 
     @property
     def lipschitz_certified(self) -> bool:
-        """True when :attr:`lipschitz` is a proven upper bound, not an estimate."""
+        """True when :attr:`lipschitz` is a proven upper bound, not an estimate or a claim."""
         return self.op.norm_bound().certified
+
+    @property
+    def lipschitz_basis(self) -> str:
+        """What :attr:`lipschitz` rests on: ``"certified"``, ``"estimated"`` (power iteration)
+        or ``"claimed"`` (a norm the user gave, see :attr:`pnpguard.NormBound.basis`)."""
+        return self.op.norm_bound().basis
 
     @property
     def strong_convexity(self) -> float:

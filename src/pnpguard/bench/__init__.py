@@ -44,13 +44,16 @@ from ._tasks import (
     Problem,
     Suite,
     Task,
+    UserModel,
     custom_suite,
     get_suite,
     get_task,
     suite_names,
     task_names,
+    user_task,
 )
 from ._tuned import SHIPPED_TUNED, TunedParameters, load_tuned
+from ._tuning import tune_task
 
 __all__ = [
     "ASPECTS",
@@ -72,6 +75,7 @@ __all__ = [
     "Suite",
     "Task",
     "TunedParameters",
+    "UserModel",
     "compare_results",
     "custom_suite",
     "denoiser_names",
@@ -89,5 +93,7 @@ __all__ = [
     "shipped_denoisers",
     "suite_names",
     "task_names",
+    "tune_task",
+    "user_task",
     "write_report",
 ]

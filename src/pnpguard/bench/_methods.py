@@ -24,7 +24,7 @@ from ..splitting import ALGORITHMS, algorithm
 from ..starts import interpolated_start
 from . import _baselines as bl
 from ._registry import get_denoiser, shipped_denoisers
-from ._tasks import Problem
+from ._tasks import USER_FAMILY, Problem
 
 #: Iteration cap and relative tolerance of the first, stronger phase of an annealed descent run.
 FIRST_PHASE_MAX_ITER = 50
@@ -32,8 +32,8 @@ FIRST_PHASE_TOL = 1e-3
 
 #: Classical baselines: name -> (families it applies to, tuned parameter names).
 BASELINES: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
-    "tikhonov": (("deblurring", "inpainting", "super-resolution", "tomography"), ("weight",)),
-    "tv-regularised": (("deblurring", "inpainting", "super-resolution", "tomography"), ("weight",)),
+    "tikhonov": (("deblurring", "inpainting", "super-resolution", "tomography", USER_FAMILY), ("weight",)),
+    "tv-regularised": (("deblurring", "inpainting", "super-resolution", "tomography", USER_FAMILY), ("weight",)),
     "richardson-lucy": (("deblurring",), ("iterations",)),
     "interpolation": (("inpainting",), ("method",)),
     "bicubic": (("super-resolution",), ()),

@@ -10,7 +10,7 @@ from typing import Any
 
 import numpy as np
 
-from ._tasks import FAMILIES
+from ._tasks import FAMILIES, USER_FAMILY
 
 #: The project's goal: the best guarded PnP method beats the best classical
 #: baseline by at least this many dB, averaged over the tasks of each family.
@@ -69,7 +69,7 @@ def family_gaps(document: dict[str, Any]) -> list[FamilyGap]:
     for task in document["tasks"]:
         by_family[task["family"]].append(task["name"])
     gaps = []
-    for family in FAMILIES:
+    for family in (*FAMILIES, USER_FAMILY):
         if family not in by_family:
             continue
         values = []

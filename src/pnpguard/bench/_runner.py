@@ -35,6 +35,7 @@ from ._results import (
 )
 from ._tasks import DATA_RANGE, Suite, get_suite
 from ._tuned import TunedParameters, load_tuned
+from ._tuning import tune_task
 
 
 def _select(suite: Suite, methods: Iterable[str] | None) -> dict[str, tuple[Method, ...]]:
@@ -103,6 +104,10 @@ def run_suite(
         A suite or its name (``"quick"``, ``"full"``).
     tuned : TunedParameters, optional
         Frozen method parameters; default the file shipped with the package.
+        Users' own tasks (:func:`pnpguard.bench.user_task`) that it lacks are
+        tuned first on their tuning images (:func:`pnpguard.bench.tune_task`,
+        at the suite's ``max_iter``, ``tol`` and check budget, for the
+        selected methods); the result file records which.
     methods : iterable of str, optional
         Run only these methods (names as in the result file, e.g.
         ``"tikhonov"``, ``"fb/wavelet"``).
@@ -139,6 +144,7 @@ def run_suite(
     budget = suite.check_budget if check_budget is None else check_budget
     threads = positive_int(threads, "threads")
     selected = _select(suite, methods)
+    untuned = [task for task in suite.tasks if task.truth is not None and task.name not in tuned.data["tasks"]]
     total = sum(len(chosen) for chosen in selected.values())
     bar = None
     if progress:
@@ -150,9 +156,19 @@ def run_suite(
     begin = time.perf_counter()
     tasks, records, arrays = [], [], {}
     try:
+        if untuned:
+            how = (f"tuned in this run on the user's tuning image (max_iter {suite.max_iter}, tol {suite.tol:g}, "
+                   f"check budget {budget}; the grids of pnpguard.bench.tune_task)")
+            tuned = tuned.including(
+                {task.name: tune_task(task, shape=suite.shape, max_iter=suite.max_iter, tol=suite.tol,
+                                      check_budget=budget, methods=[m.name for m in selected[task.name]])
+                 for task in untuned},
+                how,
+            )
         for task in suite.tasks:
             task_begin = time.perf_counter()
-            problem = task.problem(suite.shape)
+            shape = task.fixed_shape or suite.shape
+            problem = task.problem(shape)
             arrays[f"{task.name}/truth"] = problem.truth
             arrays[f"{task.name}/data"] = problem.y
             denoisers = DenoiserCache(problem, budget=budget, seed=seed)
@@ -177,7 +193,7 @@ def run_suite(
                 if bar is not None:
                     bar.update(1)
             tasks.append(
-                {**task.describe(), "shape": list(suite.shape), "sigma": problem.sigma,
+                {**task.describe(), "shape": list(shape), "sigma": problem.sigma,
                  "seconds": time.perf_counter() - task_begin}
             )
     finally:

@@ -12,11 +12,13 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 import torch
 
-from .._validation import unknown_message
+from .._arrays import ArrayLike, to_tensor
+from .._validation import nonnegative_int, number_in, unknown_message
 from ..fidelity import LeastSquares
 from ..operators import (
     Convolution,
@@ -34,8 +36,12 @@ from ..phantoms import make_phantom
 
 Shape = tuple[int, int]
 
-#: Task families, in the order reports list them.
+#: Task families of the shipped tasks, in the order reports list them.
 FAMILIES = ("deblurring", "inpainting", "super-resolution", "tomography")
+
+#: The family of a user's task whose operator is of no shipped kind (reported after
+#: :data:`FAMILIES`), compared with the baselines that need nothing but the operator.
+USER_FAMILY = "custom"
 
 #: Phantoms are in [0, 1]; PSNR and SSIM use this intensity range.
 DATA_RANGE = 1.0
@@ -178,7 +184,42 @@ class Scan:
         return f"parallel beam, {self.views} views over {self.arc:g} deg"
 
 
-Model = Blur | Mask | Downsampling | Scan
+@dataclass(frozen=True)
+class UserModel:
+    """A user's forward model: any :class:`~pnpguard.LinearOperator`, e.g. from :func:`pnpguard.as_operator`.
+
+    Attributes
+    ----------
+    op : LinearOperator
+        Its ``in_shape`` is the task's image size.
+    """
+
+    op: LinearOperator
+
+    @property
+    def family(self) -> str:
+        """The family of a shipped kind of operator (its baselines apply), else ``"custom"``."""
+        for kind, family in ((Convolution, "deblurring"), (PixelMask, "inpainting"),
+                             (Decimation, "super-resolution"), (ParallelProjection, "tomography")):
+            if isinstance(self.op, kind):
+                return family
+        return USER_FAMILY
+
+    def operator(self, shape: Shape, seed: int) -> LinearOperator:
+        if tuple(shape) != self.op.in_shape:
+            raise ValueError(f"the user's operator takes {self.op.in_shape} images, not {tuple(shape)}")
+        return self.op
+
+    def describe(self) -> dict:
+        bound = self.op.norm_bound()
+        return {"kind": "user", "operator": repr(self.op), "norm": bound.value, "norm_basis": bound.basis}
+
+    def summary(self) -> str:
+        """One line for people: the operator's repr."""
+        return repr(self.op)
+
+
+Model = Blur | Mask | Downsampling | Scan | UserModel
 
 
 # ------------------------------------------------------------------ tasks
@@ -244,6 +285,9 @@ class Task:
         Phantom the parameters are tuned on.
     tuning_seed : int
         Seed of the tuning phantom, mask and noise (differs from ``seed``).
+    truth, tuning_truth : numpy.ndarray or None
+        A user's task (:func:`user_task`): the ground truth and the separate
+        tuning image, used instead of the phantoms; None for shipped tasks.
     """
 
     name: str
@@ -253,6 +297,8 @@ class Task:
     seed: int
     tuning_phantom: str
     tuning_seed: int
+    truth: np.ndarray | None = field(default=None, repr=False, compare=False)
+    tuning_truth: np.ndarray | None = field(default=None, repr=False, compare=False)
 
     def __post_init__(self) -> None:
         if self.tuning_seed == self.seed:
@@ -262,6 +308,11 @@ class Task:
     def family(self) -> str:
         """``"deblurring"``, ``"inpainting"``, ``"super-resolution"`` or ``"tomography"``."""
         return self.model.family
+
+    @property
+    def fixed_shape(self) -> Shape | None:
+        """The image size of a user's task (its truth's), None for shipped tasks (any size)."""
+        return None if self.truth is None else tuple(self.truth.shape)
 
     def problem(self, shape: Shape, *, tuning: bool = False, image: np.ndarray | None = None) -> Problem:
         """Build the concrete problem at ``shape``.
@@ -288,10 +339,13 @@ class Task:
         """
         seed = self.tuning_seed if tuning else self.seed
         phantom = self.tuning_phantom if tuning else self.phantom
+        if image is None and self.truth is not None:
+            image = self.tuning_truth if tuning else self.truth
         if image is None:
             truth = make_phantom(phantom, shape, seed=seed)
         else:
-            truth, phantom = np.asarray(image, dtype=np.float64), "user image"
+            truth = np.asarray(image, dtype=np.float64)
+            phantom = phantom if self.truth is not None else "user image"
             if truth.shape != tuple(shape):
                 raise ValueError(f"`image` has shape {truth.shape} but `shape` is {tuple(shape)}")
         op = self.model.operator(tuple(shape), seed)
@@ -420,7 +474,7 @@ def get_suite(name: str) -> Suite:
 
 
 def custom_suite(
-    tasks: tuple[str, ...] | list[str],
+    tasks: tuple[str | Task, ...] | list[str | Task],
     *,
     shape: Shape,
     max_iter: int,
@@ -428,5 +482,93 @@ def custom_suite(
     check_budget: int = 60,
     name: str = "custom",
 ) -> Suite:
-    """A suite of named tasks at a chosen size (small suites for tests and trials)."""
-    return Suite(name, tuple(get_task(t) for t in tasks), tuple(shape), max_iter, tol, check_budget)
+    """A suite of tasks at a chosen size: shipped ones by name, users' own as :class:`Task` records.
+
+    A user's task (:func:`user_task`) keeps its own image size; the others run
+    at ``shape``. Task names must be unique within the suite.
+    """
+    chosen = []
+    for task in tasks:
+        if not isinstance(task, (str, Task)):
+            raise TypeError(f"`tasks` entries must be task names or Task records, got {type(task).__name__}")
+        chosen.append(get_task(task) if isinstance(task, str) else task)
+    names = [task.name for task in chosen]
+    repeated = sorted({n for n in names if names.count(n) > 1})
+    if repeated:
+        raise ValueError(f"`tasks` names {repeated[0]!r} more than once; task names must be unique")
+    return Suite(name, tuple(chosen), tuple(shape), max_iter, tol, check_budget)
+
+
+def _user_image(value: Any, name: str) -> np.ndarray:
+    tensor, _ = to_tensor(value, name, ndims=(2,))
+    return tensor.to(torch.float64).cpu().numpy().copy()
+
+
+def user_task(
+    name: str,
+    truth: ArrayLike,
+    operator: LinearOperator,
+    noise: float,
+    *,
+    tuning_image: ArrayLike,
+    seed: int = 0,
+) -> Task:
+    """A benchmark task from a user's ground truth, forward model and noise level.
+
+    Parameters
+    ----------
+    name : str
+        Task name in results and reports; must differ from the shipped
+        tasks' names.
+    truth : numpy.ndarray or torch.Tensor
+        ``(H, W)`` float ground truth, in [0, 1] for PSNR/SSIM with data range
+        1 to mean what they do for the shipped tasks (copied).
+    operator : LinearOperator
+        Any pnpguard operator taking ``(H, W)`` images, e.g. from
+        :func:`pnpguard.as_operator`; its kind decides the family and so the
+        baselines (a blur, mask, decimation or projection get their
+        family's; any other operator is :data:`USER_FAMILY`, compared with
+        Tikhonov and TV-regularised reconstructions).
+    noise : float
+        Noise standard deviation as a fraction of the noiseless data's peak,
+        in (0, 1), as for the shipped tasks.
+    tuning_image : numpy.ndarray or torch.Tensor
+        A different ``(H, W)`` image on which every method is tuned (never the
+        truth), with noise from ``seed + 1000``.
+    seed : int, optional
+        Seed of the benchmark noise.
+
+    Returns
+    -------
+    Task
+        Enters a suite through :func:`custom_suite` beside shipped tasks; a
+        suite run tunes it on ``tuning_image`` when the tuned parameters lack
+        it (:func:`pnpguard.bench.run_suite`).
+
+    Raises
+    ------
+    TypeError, ValueError
+        For a name already used by a shipped task, arrays that are not
+        finite float ``(H, W)`` images, a tuning image equal to the truth or
+        of another shape, an operator of another image size, or a noise
+        level outside (0, 1).
+    """
+    if not isinstance(name, str) or not name:
+        raise TypeError(f"`name` must be a non-empty string, got {name!r}")
+    if name in TASKS:
+        raise ValueError(f"`name` {name!r} is a shipped task's name; choose another")
+    if not isinstance(operator, LinearOperator):
+        raise TypeError(f"`operator` must be a pnpguard LinearOperator (see pnpguard.as_operator), got "
+                        f"{type(operator).__name__}")
+    noise = number_in(noise, "noise", 0.0, 1.0, low_open=True, high_open=True)
+    seed = nonnegative_int(seed, "seed")
+    image = _user_image(truth, "truth")
+    tuning = _user_image(tuning_image, "tuning_image")
+    if tuning.shape != image.shape:
+        raise ValueError(f"`tuning_image` has shape {tuning.shape} but `truth` has shape {image.shape}")
+    if np.array_equal(tuning, image):
+        raise ValueError("`tuning_image` equals `truth`; tune on a separate image, never on the ground truth")
+    if operator.in_shape != image.shape:
+        raise ValueError(f"`operator` takes {operator.in_shape} images but `truth` has shape {image.shape}")
+    return Task(name, UserModel(operator), noise, "user truth", seed, "user tuning image", seed + 1000,
+                truth=image, tuning_truth=tuning)

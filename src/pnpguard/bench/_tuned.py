@@ -85,7 +85,25 @@ class TunedParameters:
             "sha256": self.sha256,
             "created": self.data.get("created"),
             "git_commit": self.data.get("git_commit"),
+            "tuned_here": sorted(self.data.get("tuned_here", {})),
         }
+
+    def including(self, entries: dict[str, dict[str, Any]], how: str) -> TunedParameters:
+        """These parameters plus entries tuned in this process (users' tasks), which are recorded.
+
+        Parameters
+        ----------
+        entries : dict
+            Task name -> entry of the file layout (:func:`pnpguard.bench.tune_task`).
+        how : str
+            How they were tuned, in words; kept under ``"tuned_here"``.
+        """
+        clash = sorted(set(entries) & set(self.data["tasks"]))
+        if clash:
+            raise ValueError(f"task {clash[0]!r} already has tuned parameters in {self.path}")
+        data = {**self.data, "tasks": {**self.data["tasks"], **entries},
+                "tuned_here": {**self.data.get("tuned_here", {}), **{name: how for name in entries}}}
+        return TunedParameters(data, self.path, self.sha256)
 
 
 def load_tuned(path: str | Path | None = None) -> TunedParameters:

@@ -57,8 +57,10 @@ class Guarantee:
     assumptions : tuple of str
         What the guarantee rests on.
     status : {"proved", "conditional"}
-        ``"proved"`` when every constant used is proved; ``"conditional"``
-        when one is an estimate (inflated by ``margin``).
+        ``"proved"`` when every constant used is proved (the data term's
+        ``L`` from a certified norm bound); ``"conditional"`` when one is an
+        estimate (inflated by ``margin``) or a claim (the denoiser's, or a
+        norm the user gave to :func:`pnpguard.as_operator`).
     theta, residual_lipschitz, lipschitz, strong_convexity : float
         The constants used (denoiser's after the margin; data term's ``L`` and
         ``mu``).
@@ -161,10 +163,16 @@ def _fmt(value: float) -> str:
 
 # ---------------------------------------------------------------------- inputs
 def _constants(fidelity: LeastSquares, report: CheckReport, margin: float) -> Constants:
-    """The constants the routes read: proved, claimed (unrefuted claims) or estimated + margin."""
+    """The constants the routes read: proved, claimed (unrefuted claims) or estimated + margin.
+
+    ``L`` from an estimated operator norm is inflated by ``margin`` like an
+    estimated denoiser constant; a claimed norm stands as stated.
+    """
     estimates = (report.theta, report.residual_lipschitz)
+    data_basis = fidelity.lipschitz_basis
+    lipschitz = fidelity.lipschitz * (1.0 + margin if data_basis == "estimated" else 1.0)
     mu = fidelity.strong_convexity
-    if mu <= MU_ROUNDING * fidelity.lipschitz:
+    if mu <= MU_ROUNDING * lipschitz:
         mu = 0.0
     smoothness_raw = math.nan
     if report.smoothness is not None:
@@ -180,15 +188,21 @@ def _constants(fidelity: LeastSquares, report: CheckReport, margin: float) -> Co
         smoothness_raw=smoothness_raw,
         smoothness=math.inf if math.isnan(smoothness_raw) else smoothness_raw * (1.0 + margin),
         denoiser_lipschitz=report.lipschitz,
-        lipschitz=fidelity.lipschitz,
+        lipschitz=lipschitz,
         strong_convexity=mu,
-        data_proved=fidelity.lipschitz_certified,
+        data_basis=data_basis,
         expansive=not report.nonexpansive,
         refutation=report.refuted or "",
         estimates=estimates,
     )
     if report.verdict == "proved":
-        return Constants(theta=report.theta, residual_lipschitz=report.residual_lipschitz, basis="proved", margin=0.0, **common)
+        return Constants(
+            theta=report.theta,
+            residual_lipschitz=report.residual_lipschitz,
+            basis="proved",
+            margin=margin if data_basis == "estimated" else 0.0,
+            **common,
+        )
     inflate = 1.0 + margin
     theta, eps = report.theta * inflate, report.residual_lipschitz * inflate
     claimed = claimed_constants(report.claims) if report.verdict == "estimated" else None
@@ -205,9 +219,18 @@ def _constants(fidelity: LeastSquares, report: CheckReport, margin: float) -> Co
     return Constants(theta=theta, residual_lipschitz=eps, basis="estimated", margin=margin, **common)
 
 
+def _data_basis(c: Constants) -> str:
+    """Where the data term's ``L`` comes from, as printed in assumptions."""
+    return {
+        "certified": "certified",
+        "estimated": f"from a power-iteration estimate of ||A||, inflated by {100 * c.margin:.0f} %: not a proof",
+        "claimed": "from the operator norm the user claimed: not verified",
+    }[c.data_basis]
+
+
 def _assumptions(c: Constants, report: CheckReport, route: Route) -> tuple[str, ...]:
     if route.premise is not None:
-        data = f"data term convex, grad f Lipschitz with L = {c.lipschitz:.6g} ({'certified' if c.data_proved else 'estimated norm'})"
+        data = f"data term convex, grad f Lipschitz with L = {c.lipschitz:.6g} ({_data_basis(c)})"
         return (route.premise(c), data, route.assumption)
     if not route.uses_constants:
         premise = {
@@ -240,7 +263,7 @@ def _assumptions(c: Constants, report: CheckReport, route: Route) -> tuple[str, 
         )
     texts.append(
         "data term convex, grad f Lipschitz with L = "
-        f"{c.lipschitz:.6g} ({'certified' if c.data_proved else 'estimated norm'})"
+        f"{c.lipschitz:.6g} ({_data_basis(c)})"
         + (f", strongly convex with mu = {c.strong_convexity:.6g}" if c.strong_convexity > 0 else ", mu = 0")
     )
     texts.append(route.assumption)
@@ -253,7 +276,7 @@ def _guarantee(
     certified = route.iteration_map(c, window.step)
     constant = 1.0 if certified.kind == "nonexpansive" else route.relaxed(window.relaxation, certified.constant)
     if window.basis is None:
-        status = "proved" if c.basis == "proved" and c.data_proved else "conditional"
+        status = "proved" if c.basis == "proved" and c.data_basis == "certified" else "conditional"
     else:
         status = "proved" if window.basis == "proved" else "conditional"
     return Guarantee(
@@ -272,7 +295,7 @@ def _guarantee(
         residual_lipschitz=c.residual_lipschitz,
         lipschitz=c.lipschitz,
         strong_convexity=c.strong_convexity,
-        margin=c.margin if c.basis != "proved" else 0.0,
+        margin=c.margin,
         smoothness=c.smoothness,
         rule=route,
     )

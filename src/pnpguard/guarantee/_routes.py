@@ -135,10 +135,11 @@ class Constants:
     basis : {"proved", "claimed", "estimated"}
         Where the denoiser's constants come from: its verified structure, the
         user's unrefuted claims, or a search (inflated by ``margin``).
-    data_proved : bool
-        True when ``L`` is certified.
+    data_basis : {"certified", "estimated", "claimed"}
+        What ``L`` rests on: a certified norm bound, a power-iteration
+        estimate (inflated by ``margin`` before use) or the user's claimed norm.
     margin : float
-        Inflation applied to estimates (0 otherwise).
+        Inflation applied to estimates, of the denoiser or of ``L`` (0 otherwise).
     expansive : bool
         True when a pair (or the structure) shows that the denoiser expands.
     refutation : str
@@ -162,7 +163,7 @@ class Constants:
     lipschitz: float
     strong_convexity: float
     basis: Literal["proved", "claimed", "estimated"]
-    data_proved: bool
+    data_basis: Literal["certified", "estimated", "claimed"]
     margin: float
     expansive: bool
     refutation: str

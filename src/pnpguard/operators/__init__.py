@@ -6,14 +6,19 @@ from ._decimation import Decimation
 from ._mask import PixelMask, dead_lines_mask, random_pixel_mask, scratch_mask
 from ._projection import ParallelProjection, filtered_backprojection
 from ._psf import disk_psf, gaussian_psf, motion_psf
+from ._user import FunctionOperator, MatrixOperator, adjoint_mismatch, as_operator
 
 __all__ = [
     "Convolution",
     "Decimation",
+    "FunctionOperator",
     "LinearOperator",
+    "MatrixOperator",
     "NormBound",
     "ParallelProjection",
     "PixelMask",
+    "adjoint_mismatch",
+    "as_operator",
     "dead_lines_mask",
     "disk_psf",
     "filtered_backprojection",

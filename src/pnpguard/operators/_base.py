@@ -42,11 +42,23 @@ class NormBound:
         power-iteration estimate, which can undershoot.
     method : str
         How the bound was obtained, in words.
+    claimed : bool
+        True when the value is the user's word (a norm given to
+        :func:`pnpguard.as_operator`), never together with ``certified``.
+        Composites of a claimed part are estimated by power iteration.
     """
 
     value: float
     certified: bool
     method: str
+    claimed: bool = False
+
+    @property
+    def basis(self) -> str:
+        """``"certified"``, ``"claimed"`` or ``"estimated"``: what the value rests on."""
+        if self.certified:
+            return "certified"
+        return "claimed" if self.claimed else "estimated"
 
 
 def _shape_text(shape: Shape) -> str:

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import math
-import warnings
 from typing import Any
 
 import numpy as np
@@ -13,6 +12,7 @@ import torch
 from .._arrays import ArrayLike, as_float_tensor, check_image_shape, from_tensor, to_tensor
 from .._validation import choice, image_shape, number_in, positive_int
 from ._base import LinearOperator, Shape
+from ._sparse import MatrixCache, apply_matrix, to_torch_csr
 
 #: About this many (pixel, angle) pairs are processed together while the
 #: system matrix is assembled (small blocks stay in cache).
@@ -89,54 +89,6 @@ def _transposed_system_matrix(
         (np.concatenate(data), np.concatenate(indices), np.concatenate(indptr)),
         shape=(height * width, n_angles * n_detectors),
     )
-
-
-def _csr_tensor(
-    crow: torch.Tensor, col: torch.Tensor, values: torch.Tensor, size: Shape
-) -> torch.Tensor:
-    with warnings.catch_warnings():
-        # torch flags sparse CSR support as beta on first use.
-        warnings.simplefilter("ignore", UserWarning)
-        return torch.sparse_csr_tensor(crow, col, values, size=size, check_invariants=False)
-
-
-def _to_torch_csr(matrix: scipy.sparse.csr_matrix) -> torch.Tensor:
-    small = max(matrix.nnz, *matrix.shape) < np.iinfo(np.int32).max
-    index_dtype = np.int32 if small else np.int64
-    return _csr_tensor(
-        torch.from_numpy(matrix.indptr.astype(index_dtype)),
-        torch.from_numpy(matrix.indices.astype(index_dtype)),
-        torch.from_numpy(matrix.data.astype(np.float64)),
-        matrix.shape,
-    )
-
-
-class _MatrixCache:
-    """A float64 CSR matrix kept once per (dtype, device); copies share indices."""
-
-    def __init__(self, master: torch.Tensor):
-        self.master = master
-        self._copies = {(master.dtype, master.device): master}
-
-    def like(self, x: torch.Tensor) -> torch.Tensor:
-        """The matrix in ``x``'s dtype and on its device."""
-        key = (x.dtype, x.device)
-        if key not in self._copies:
-            m = self.master
-            self._copies[key] = _csr_tensor(
-                m.crow_indices().to(x.device),
-                m.col_indices().to(x.device),
-                m.values().to(device=x.device, dtype=x.dtype),
-                m.shape,
-            )
-        return self._copies[key]
-
-
-def _apply(matrix: torch.Tensor, x: torch.Tensor, out_shape: Shape) -> torch.Tensor:
-    """``matrix @ x`` on the flattened trailing two axes of ``x``."""
-    lead = x.shape[:-2]
-    columns = x.reshape(-1, x.shape[-2] * x.shape[-1]).T.contiguous()
-    return (matrix @ columns).T.reshape(*lead, *out_shape)
 
 
 class ParallelProjection(LinearOperator):
@@ -243,8 +195,8 @@ class ParallelProjection(LinearOperator):
         self.n_detectors = _validate_detectors(n_detectors, shape)
         super().__init__(shape, (self._angles.size, self.n_detectors))
         transposed = _transposed_system_matrix(shape, self._angles, self.n_detectors)
-        self._matrix = _MatrixCache(_to_torch_csr(transposed.T.tocsr()))
-        self._transposed = _MatrixCache(_to_torch_csr(transposed))
+        self._matrix = MatrixCache(to_torch_csr(transposed.T.tocsr()))
+        self._transposed = MatrixCache(to_torch_csr(transposed))
 
     @property
     def angles(self) -> np.ndarray:
@@ -257,10 +209,10 @@ class ParallelProjection(LinearOperator):
         return int(self._matrix.master.values().numel())
 
     def _forward(self, x: torch.Tensor) -> torch.Tensor:
-        return _apply(self._matrix.like(x), x, self.out_shape)
+        return apply_matrix(self._matrix.like(x), x, self.out_shape)
 
     def _adjoint(self, y: torch.Tensor) -> torch.Tensor:
-        return _apply(self._transposed.like(y), y, self.in_shape)
+        return apply_matrix(self._transposed.like(y), y, self.in_shape)
 
     @property
     def nonnegative(self) -> bool:
