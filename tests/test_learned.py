@@ -136,6 +136,33 @@ def test_layouts_dtypes_and_kinds_are_preserved(dtype):
     assert np.array_equal(batch[0, 0].numpy(), image)  # input untouched
 
 
+@pytest.mark.parametrize("make", [lambda: residual_cnn(0.1), lambda: averaged_cnn(0.1, theta=0.75)])
+def test_a_float64_input_runs_the_network_in_its_weights_precision(make):
+    denoiser = make()
+    image = bundled_image("camera")[:32, :40]
+    single = denoiser(image.astype(np.float32))
+    double = denoiser(image.astype(np.float64))
+    # Cast once in and once out: the float64 result is the float32 result, widened exactly.
+    assert double.dtype == np.float64
+    np.testing.assert_array_equal(double, single.astype(np.float64))
+    assert denoiser.precision(torch.float64) == torch.float32
+    assert denoiser.rounding_eps(torch.float64) == torch.finfo(torch.float32).eps
+    # The traced path casts the same way, and gradients flow through the casts.
+    t = torch.from_numpy(image.astype(np.float64)).requires_grad_(True)
+    out = denoiser.apply_traced(t)
+    assert out.dtype == torch.float64
+    out.sum().backward()
+    assert t.grad is not None and t.grad.dtype == torch.float64
+
+
+def test_a_float64_check_of_the_averaged_network_is_not_refuted_by_float32_rounding():
+    # The network computes in float32: pairs closer than float32 rounding must say nothing.
+    denoiser = averaged_cnn(0.05, theta=0.75)
+    sample = bundled_image("camera")[:32, :32].astype(np.float64)
+    report = pg.check_denoiser(denoiser, sample, budget=60, seed=0, cross_check=True)
+    assert report.verdict == "proved"
+
+
 def test_sigma_and_theta_outside_trained_range_are_refused():
     with pytest.raises(ValueError, match="sigma"):
         residual_cnn(0.5)

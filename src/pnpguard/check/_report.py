@@ -48,7 +48,7 @@ class Witness:
         """Evaluate the denoiser on the pair again and return the statistic."""
         both = torch.cat([self.x, self.y])
         out = denoiser.apply(both)
-        stats = pair_statistics(self.x, self.y, out[:1], out[1:])
+        stats = pair_statistics(self.x, self.y, out[:1], out[1:], denoiser.rounding_eps(out.dtype))
         return float(_pick(stats, self.quantity)[0])
 
 

@@ -161,6 +161,21 @@ class Denoiser(abc.ABC):
             )
         return from_tensor(out, kind)
 
+    def precision(self, dtype: torch.dtype) -> torch.dtype:
+        """The dtype the map computes in for an input of ``dtype``.
+
+        The input's own dtype unless the map runs at a fixed precision (a
+        network runs in its weights' precision: a float64 input is cast to
+        float32 once, the output cast back). The check and the run monitor
+        allow for rounding at the coarser of the two precisions
+        (:meth:`rounding_eps`).
+        """
+        return dtype
+
+    def rounding_eps(self, dtype: torch.dtype) -> float:
+        """Machine epsilon of the coarser of ``dtype`` and :meth:`precision` of ``dtype``."""
+        return max(torch.finfo(dtype).eps, torch.finfo(self.precision(dtype)).eps)
+
     def potential_at(self, t: torch.Tensor) -> Any:
         """The potential ``g`` at ``t`` when ``D = I - grad g`` with ``g`` computable, else None.
 

@@ -29,6 +29,10 @@ class _Relaxed(Denoiser):
     def _denoise(self, t: torch.Tensor) -> torch.Tensor:
         return (1.0 - self.s) * t + self.s * self.denoiser._run(t)
 
+    def precision(self, dtype: torch.dtype) -> torch.dtype:
+        """The inner denoiser's precision."""
+        return self.denoiser.precision(dtype)
+
     def tolerance_driver(self) -> Callable[[torch.Tensor, float], torch.Tensor] | None:
         """The inner driver at tolerance ``tol / s`` (the relaxed map's error is ``s`` times the inner one's)."""
         inner = self.denoiser.tolerance_driver()

@@ -39,9 +39,10 @@ class LearnedDenoiser(Denoiser):
     """A torch network ``f(noisy, sigma, **options)`` presented as a Denoiser.
 
     Handles the layouts ``(H, W)`` and ``(N, C, H, W)`` (channels are denoised
-    separately), runs the network in the input's dtype and on its device
-    (float64 inputs use a double-precision copy of the network), and is
-    differentiable (``apply_traced``).
+    separately), runs the network in its weights' precision on the input's
+    device (a float64 input is cast to float32 once and the output cast back:
+    :meth:`precision`; the check and the monitor allow for float32 rounding),
+    and is differentiable (``apply_traced``).
 
     Parameters
     ----------
@@ -81,10 +82,17 @@ class LearnedDenoiser(Denoiser):
         """The wrapped network (float32 copy, evaluation mode)."""
         return self._network.module
 
+    def precision(self, dtype: torch.dtype) -> torch.dtype:
+        """The weights' dtype, whatever the input's."""
+        return self._network.dtype
+
     def _denoise(self, t: torch.Tensor) -> torch.Tensor:
-        # A copy, so that a network writing into its input cannot change the caller's data.
-        batch = (t[None, None] if t.ndim == 2 else t).clone()
-        out = self._network.like(t)(batch, self.sigma, **self._options)
+        # Cast once in (a copy either way, so that a network writing into its input cannot
+        # change the caller's data), computed in the weights' precision, cast back once.
+        batch = t[None, None] if t.ndim == 2 else t
+        compute = self._network.dtype
+        batch = batch.clone() if batch.dtype == compute else batch.to(compute)
+        out = self._network.on(t.device)(batch, self.sigma, **self._options).to(t.dtype)
         return out[0, 0] if t.ndim == 2 else out
 
 
