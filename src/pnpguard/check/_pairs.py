@@ -26,6 +26,7 @@ References
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import torch
@@ -57,6 +58,18 @@ def averagedness_statistic(
         torch.full_like(inner, torch.inf),
     )
     return theta, informative
+
+
+def averagedness_value(r_norm: float, inner: float, a_norm: float, allowance: float) -> tuple[float, bool]:
+    """:func:`averagedness_statistic` of one pair, on Python floats (the run monitor's per-step form).
+
+    The same formula and the same informativeness test, without building
+    tensors for four numbers on every iteration.
+    """
+    informative = r_norm**2 > INFORMATIVE_FACTOR * allowance * a_norm
+    if inner > 0:
+        return r_norm**2 / (2.0 * max(inner, torch.finfo(torch.float64).tiny)), informative
+    return math.inf, informative
 
 
 @dataclass(frozen=True)

@@ -27,7 +27,7 @@ from typing import Literal
 import torch
 
 from .._validation import choice, positive_int, positive_number
-from ..check._pairs import ROUNDING_FACTOR, averagedness_statistic
+from ..check._pairs import ROUNDING_FACTOR, averagedness_value
 from ..splitting import DescentStep
 
 Action = Literal["warn", "stop", "back_off"]
@@ -231,15 +231,15 @@ class Monitor:
         if self.map_kind is None:
             return flags
         if self.map_kind == "averaged":
-            # a = -d_(k-1) and r = d_k - d_(k-1), so <a, r> = -<d_(k-1), r> (no cancellation).
-            r = step - previous
-            inner = -float(torch.vdot(previous.reshape(-1), r.reshape(-1)))
-            r_norm = norm(r)
-            theta, informative = averagedness_statistic(
-                *(torch.tensor(value, dtype=torch.float64) for value in (r_norm, inner, before, allowance))
-            )
-            if bool(informative) and r_norm > 0:
-                statistic = float(theta)
+            # a = -d_(k-1) and r = d_k - d_(k-1). From one inner product p = <d_(k-1), d_k>:
+            # <a, r> = ||d_(k-1)||^2 - p and ||r||^2 = ||d_k||^2 - 2 p + ||d_(k-1)||^2. Their
+            # cancellation error, about eps ||d||^2, is far below the rounding allowance
+            # eps ||v|| ||d|| that makes a pair informative (||d|| <= ||v|| once iterating).
+            p = float(torch.vdot(previous.reshape(-1), step.reshape(-1)))
+            inner = before * before - p
+            r_norm = math.sqrt(max(residual * residual - 2.0 * p + before * before, 0.0))
+            statistic, informative = averagedness_value(r_norm, inner, before, allowance)
+            if informative and r_norm > 0:
                 if statistic > self.constant + 1e-6:
                     flags.append(
                         self._flag(
@@ -291,17 +291,15 @@ class Monitor:
             )
         if self.map_kind == "averaged":
             inner = float(torch.vdot(a.reshape(-1), r.reshape(-1)))
-            theta, informative = averagedness_statistic(
-                *(torch.tensor(value, dtype=torch.float64) for value in (r_norm, inner, a_norm, allowance))
-            )
-            if bool(informative) and r_norm > 0 and float(theta) > self.constant + 1e-6:
+            theta, informative = averagedness_value(r_norm, inner, a_norm, allowance)
+            if informative and r_norm > 0 and theta > self.constant + 1e-6:
                 flags.append(
                     self._flag(
                         "assumption_broken",
                         iteration,
-                        f"the last pair of accepted points gives averagedness {float(theta):.6g} > certified "
+                        f"the last pair of accepted points gives averagedness {theta:.6g} > certified "
                         f"{self.constant:.6g}",
-                        float(theta),
+                        theta,
                         witness,
                     )
                 )
