@@ -513,3 +513,26 @@ def test_the_safeguard_rejects_an_anderson_step_that_increases_the_residual():
     # objective ||y - Xw||^2 / (2 m) + alpha ||w||_1 with m = 2, so alpha = 0.7 / 2.
     lasso = Lasso(alpha=0.35, fit_intercept=False, tol=1e-14, max_iter=100000).fit(a.numpy(), y.numpy())
     np.testing.assert_allclose(x.numpy(), lasso.coef_, atol=1e-8)
+
+
+def test_gamma_and_the_denoiser_strength_set_the_douglas_rachford_fixed_point_together():
+    op, _, y = _blur_problem()
+    fidelity = pg.LeastSquares(op, y, sigma=0.2)
+    mu, lipschitz = fidelity.strong_convexity, fidelity.lipschitz
+    assert mu > 0
+    gamma, threshold = 1.0 / lipschitz, 0.01
+    best = 1.0 / np.sqrt(mu * lipschitz)  # Giselsson & Boyd 2017, Thm. 1: minimiser of the reflected prox's constant
+    slow = pg.douglas_rachford(fidelity, _soft(threshold), step=gamma, max_iter=20000, tol=1e-12)
+    # soft_t = prox of t ||.||_1: the fixed point minimises f + (t / gamma) ||x||_1, so t / gamma fixes it.
+    fast = pg.douglas_rachford(fidelity, _soft(threshold * best / gamma), step=best, max_iter=20000, tol=1e-12)
+    assert slow.converged and fast.converged
+    assert_close(fast.x, slow.x, rtol=0, atol=1e-8, what="same t / gamma, same fixed point")
+    assert fast.iterations < slow.iterations
+    # Reference for both: scikit-learn's Lasso on ||y - Xw||^2 / (2 m) + alpha ||w||_1 with
+    # alpha = (t / gamma) s^2 / m.
+    lasso = Lasso(alpha=threshold / gamma * 0.2**2 / y.size, fit_intercept=False, tol=1e-14, max_iter=200000)
+    lasso.fit(dense_matrix(op), y.ravel())
+    assert_close(slow.x, lasso.coef_.reshape(SHAPE), rtol=0, atol=1e-6, what="DR vs Lasso")
+    # The guarantee says so, with the same numbers.
+    text = " ".join(slow.guarantee.assumptions)
+    assert "f + (lam / gamma) R" in text and f"gamma = {best:.4g}" in text
