@@ -30,7 +30,7 @@ from pnpguard.metrics import psnr
 
 ALGORITHMS = ("forward_backward", "douglas_rachford", "admm")
 TOL = 1e-4
-MAX_ITER = 2000
+MAX_ITER = 600
 
 
 def _run(algorithm, problem, denoiser, report, accelerate):

@@ -97,6 +97,8 @@ def _usage_error(capsys, argv, *words):
         (["frobnicate"], ["invalid choice"]),
         (["benchmark", "--tasks", "superres-x3"], ["unknown task", "superres-x2"]),
         (["benchmark", "--threads", "0"], ["--threads", "from 1 to"]),
+        (["demo", "--threads", "0"], ["--threads", "from 1 to"]),
+        (["check", "wavelet", "x.png", "--threads", "-1"], ["--threads", "from 1 to"]),
         (["compare", "a.json"], ["required"]),
         (["compare", "a.json", "b.json"], ["does not exist"]),
         (["compare", "a.json", "b.json", "--aspects", "speed"], ["quality"]),

@@ -536,3 +536,23 @@ def test_gamma_and_the_denoiser_strength_set_the_douglas_rachford_fixed_point_to
     # The guarantee says so, with the same numbers.
     text = " ".join(slow.guarantee.assumptions)
     assert "f + (lam / gamma) R" in text and f"gamma = {best:.4g}" in text
+
+
+def test_threads_option_sets_torch_threads_for_the_run_and_restores_them():
+    import pnpguard._threads as threads_module
+
+    op, _, y = _blur_problem()
+    fidelity = pg.LeastSquares(op, y, sigma=0.5)
+    seen = []
+    before = torch.get_num_threads()
+    pg.forward_backward(fidelity, _soft(0.02), max_iter=3, threads=2, callback=lambda s: seen.append(torch.get_num_threads()))
+    assert seen == [2, 2, 2] and torch.get_num_threads() == before
+    with pytest.raises(ValueError, match="threads"):
+        pg.forward_backward(fidelity, _soft(0.02), threads=0)
+    # The default never exceeds the caller's setting, and counts busy CPUs out.
+    threads_module._cache = (float("inf"), 0)  # a measurement that found no idle CPU
+    try:
+        assert threads_module.default_threads() == 1
+    finally:
+        threads_module._cache = None
+    assert 1 <= threads_module.default_threads() <= torch.get_num_threads()

@@ -206,6 +206,10 @@ _side = _integer(MIN_SIDE)
 # torch crashes the interpreter on absurd thread counts: allow up to the machine's CPUs.
 _CPUS = os.cpu_count() or 1
 _threads = _integer(1, _CPUS, expected=f"an integer from 1 to {_CPUS} (the CPUs of this machine)")
+_THREADS_HELP = (
+    "torch threads, at most the machine's CPUs (default: the CPUs idle when the run starts, so a "
+    "run beside another busy process does not oversubscribe the machine)"
+)
 
 
 def _aspects(text: str) -> tuple[str, ...]:
@@ -222,13 +226,16 @@ def _aspects(text: str) -> tuple[str, ...]:
 
 # --------------------------------------------------------------------- verbs
 def _demo(args: argparse.Namespace) -> int:
+    from ._threads import torch_threads
     from .demo import run_demo
 
-    run_demo(size=args.size, seed=args.seed)
+    with torch_threads(args.threads):
+        run_demo(size=args.size, seed=args.seed)
     return 0
 
 
 def _check(args: argparse.Namespace) -> int:
+    from ._threads import torch_threads
     from .bench import CAUTION, denoiser_names, get_denoiser, get_task
     from .check import check_denoiser
     from .guarantee import Refused, admissible
@@ -260,9 +267,10 @@ def _check(args: argparse.Namespace) -> int:
     print(f"denoiser {denoiser.name}: {how}")
     print()
     try:
-        report = check_denoiser(
-            denoiser, problem.start(), budget=args.budget, seed=args.seed, cross_check=args.cross_check
-        )
+        with torch_threads(args.threads):
+            report = check_denoiser(
+                denoiser, problem.start(), budget=args.budget, seed=args.seed, cross_check=args.cross_check
+            )
     except Exception as error:
         if not user:
             raise
@@ -477,6 +485,7 @@ def build_parser() -> argparse.ArgumentParser:
                       help=f"side of the frame in pixels, at least {MIN_SIZE} (default: %(default)s)")
     demo.add_argument("--seed", type=_seed, default=DEFAULT_SEED, metavar="N",
                       help="seed of the frame and of the noise (default: %(default)s)")
+    demo.add_argument("--threads", type=_threads, default=None, help=_THREADS_HELP)
     demo.set_defaults(run=_demo)
 
     check = verbs.add_parser(
@@ -508,6 +517,7 @@ def build_parser() -> argparse.ArgumentParser:
                             f"(default: all: {', '.join(ALGORITHMS)})")
     check.add_argument("--cross-check", action="store_true",
                        help="also search pairs when the structure proves the constants")
+    check.add_argument("--threads", type=_threads, default=None, help=_THREADS_HELP)
     check.set_defaults(run=_check)
 
     bench = verbs.add_parser(
