@@ -19,7 +19,7 @@ from ..guarantee import Guarantee, admissible
 from ..metrics import psnr, ssim
 from ..splitting import Algorithm
 from ..splitting import algorithm as algorithm_record
-from ._anderson import Anderson, memory_bytes
+from ._anderson import RADIUS_FACTOR, Anderson, memory_bytes
 from ._monitor import Flag, Monitor, norm
 from ._options import RunOptions, solver_signature
 from ._result import IterationState, Reconstruction
@@ -117,7 +117,7 @@ class _Run:
                     f"`accelerate` applies to the fixed-point algorithms; {self.algorithm.name!r} is a "
                     "descent scheme (use accelerate=False)"
                 )
-            anderson = Anderson(o.anderson_memory)
+            anderson = Anderson(o.anderson_memory, radius=RADIUS_FACTOR * scale)
             if guarantee is not None:
                 guarantee = _accelerated_guarantee(guarantee, o.anderson_memory)
         objectives: list[float] = []

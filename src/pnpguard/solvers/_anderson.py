@@ -11,8 +11,9 @@ secant conditions ``H (-y_i) = s_i``.
 
 The candidate is only a proposal. It is taken when
 
-1. its length is bounded by the plain step: ``||v~ - v_k|| <= STEP_BOUND ||f_k||``
-   (checked before ``T`` is evaluated there; otherwise the plain step is taken),
+1. its length is bounded by the plain step, ``||v~ - v_k|| <= STEP_BOUND ||f_k||``,
+   and it stays in the ball ``||v~|| <= RADIUS_FACTOR scale`` (both checked before
+   ``T`` is evaluated there; otherwise the plain step is taken),
 2. and, once ``T`` has been evaluated at ``v~``, its residual satisfies
    ``||f(v~)|| <= D ||f_0|| (n + 1)^(-(1 + eps))``, ``n`` the number of
    candidates accepted so far (the safeguard of Zhang et al. 2020).
@@ -53,6 +54,13 @@ SAFEGUARD_POWER = 1e-6
 STEP_BOUND = 1e4
 #: Reciprocal condition number of ``S^T Y`` below which the oldest pairs are dropped (our choice).
 CONDITION_LIMIT = 1e-10
+#: Largest candidate norm, in multiples of the run's reference scale (the larger of the first
+#: iterate's and the data's norms). Plain iterates of an averaged map stay within ``||v_0 - z||``
+#: of a fixed point ``z``, so within about 3 scales when ``||z||`` is about one scale; a candidate
+#: beyond that is refused before ``T`` is evaluated (our choice: where the fixed points form a
+#: set, as for Douglas-Rachford with a mask, unbounded extrapolation along it made the relative
+#: residual small while the estimate was far from a fixed point).
+RADIUS_FACTOR = 3.0
 
 
 class Anderson:
@@ -73,9 +81,10 @@ class Anderson:
         Candidates the safeguard turned down (each cost one evaluation of ``T``).
     """
 
-    def __init__(self, memory: int, safeguard: float = SAFEGUARD_FACTOR):
+    def __init__(self, memory: int, safeguard: float = SAFEGUARD_FACTOR, radius: float | None = None):
         self.memory = memory
         self.safeguard = safeguard
+        self.radius = radius
         self.accepted = 0
         self.rejected = 0
         self._first: float | None = None  # ||f_0||
@@ -114,6 +123,8 @@ class Anderson:
             candidate = candidate - float(coefficient) * (s + y)
         if not float(torch.linalg.vector_norm(candidate - point)) <= STEP_BOUND * step_norm:
             return None  # also for non-finite values
+        if self.radius is not None and not float(torch.linalg.vector_norm(candidate)) <= self.radius:
+            return None
         return candidate
 
     def admits(self, candidate_step_norm: float) -> bool:
