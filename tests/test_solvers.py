@@ -556,3 +556,33 @@ def test_threads_option_sets_torch_threads_for_the_run_and_restores_them():
     finally:
         threads_module._cache = None
     assert 1 <= threads_module.default_threads() <= torch.get_num_threads()
+
+
+def test_an_accelerated_run_still_catches_an_optimistic_estimate_with_reproducible_witnesses():
+    op, _, y = _blur_problem()
+    fidelity = pg.LeastSquares(op, y, sigma=0.2)
+    denoiser = _LinearFilter(0.225)  # spectrum [-0.8, 1]: theta = 0.9 in truth
+    optimistic = pg.CheckReport(
+        denoiser=denoiser.name, theta=0.3, lipschitz=1.0, residual_lipschitz=0.6,
+        verdict="estimated", refuted=None, witnesses={}, calls=0, seconds=0.0, method="a lucky search",
+    )
+    result = pg.forward_backward(
+        fidelity, denoiser, report=optimistic, x0=RNG.standard_normal(SHAPE), max_iter=50, accelerate=True
+    )
+    assert result.accelerated > 0
+    broken = [flag for flag in result.flags if flag.kind == "assumption_broken"]
+    assert any("accepted points" in flag.message for flag in broken)  # pairs joined by accelerated steps
+    lam = result.relaxation
+
+    def relaxed_map(v):
+        return v + lam * (denoiser.apply(v - result.step * fidelity.apply_grad(v)) - v)
+
+    for flag in broken:
+        # Whether the two accepted points are joined by a plain step or not, the pair's
+        # statistic for T_lam (THEORY.md section 2) is the one the monitor reports.
+        first, second = flag.witness
+        a = first - second
+        r = a - (relaxed_map(first) - relaxed_map(second))
+        statistic = float(torch.sum(r * r) / (2 * torch.sum(a * r)))
+        assert statistic == pytest.approx(flag.value, rel=1e-5)
+        assert statistic > result.guarantee.constant
