@@ -130,9 +130,9 @@ class _Run:
         relative: list[float] = []
         metrics: dict[str, list[float]] = {"psnr": [], "ssim": []} if self.reference is not None else {}
         v, estimate = start, start
-        # An accelerated candidate awaiting its safeguard: the accepted point it was proposed
-        # from, that point's plain step (the fallback) and the fallback's size.
-        pending: tuple[torch.Tensor, torch.Tensor, float] | None = None
+        # While an accelerated candidate awaits its safeguard: the plain step's point from the
+        # accepted point it was proposed from (the fallback), and that point's norm.
+        pending: tuple[torch.Tensor, float] | None = None
         plain = True
         back_offs, converged, message = 0, False, "reached max_iter"
         bar = _progress(o.progress, o.max_iter, self.algorithm.name)
@@ -150,11 +150,11 @@ class _Run:
             step = candidate - v
             step_norm = norm(step)
             if pending is not None:
-                origin, origin_step, origin_size = pending
+                fallback, fallback_size = pending
                 pending = None
                 if not anderson.admits(step_norm):
                     # The candidate failed the safeguard: take the plain step from its origin.
-                    v, size, plain = origin + origin_step, origin_size, True
+                    v, size, plain = fallback, fallback_size, True
                     continue
             blow, candidate_size = monitor.blow_up(iteration, candidate)
             if blow is None:
@@ -215,10 +215,10 @@ class _Run:
             if anderson is not None:
                 proposal = anderson.propose(accepted, step, step_norm)
                 if proposal is not None:
-                    pending = (accepted, step, size)
+                    pending = (v, size)
                     v, size, plain = proposal, norm(proposal), False
-        if pending is not None:  # max_iter ran out with a candidate unevaluated: end on its origin's plain step
-            v = pending[0] + pending[1]
+        if pending is not None:  # max_iter ran out with a candidate unevaluated: end on the plain step
+            v = pending[0]
         denoiser_input = scheme.denoiser_input(v)
         trivial = monitor.trivial(len(relative), denoiser_input, self.denoiser.apply(denoiser_input))
         if trivial is not None:
