@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from typing import Any
 
 import torch
@@ -32,6 +33,12 @@ class _Relaxed(Denoiser):
     def precision(self, dtype: torch.dtype) -> torch.dtype:
         """The inner denoiser's precision."""
         return self.denoiser.precision(dtype)
+
+    @contextmanager
+    def at_input_precision(self) -> Iterator[None]:
+        """The inner denoiser at the input's precision."""
+        with self.denoiser.at_input_precision():
+            yield
 
     def tolerance_driver(self) -> Callable[[torch.Tensor, float], torch.Tensor] | None:
         """The inner driver at tolerance ``tol / s`` (the relaxed map's error is ``s`` times the inner one's)."""
