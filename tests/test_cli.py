@@ -97,6 +97,8 @@ def _usage_error(capsys, argv, *words):
         (["frobnicate"], ["invalid choice"]),
         (["benchmark", "--tasks", "superres-x3"], ["unknown task", "superres-x2"]),
         (["benchmark", "--threads", "0"], ["--threads", "from 1 to"]),
+        (["demo", "--threads", "0"], ["--threads", "from 1 to"]),
+        (["check", "wavelet", "x.png", "--threads", "-1"], ["--threads", "from 1 to"]),
         (["compare", "a.json"], ["required"]),
         (["compare", "a.json", "b.json"], ["does not exist"]),
         (["compare", "a.json", "b.json", "--aspects", "speed"], ["quality"]),
@@ -255,3 +257,43 @@ def test_list_tasks_is_a_table(capsys):
     assert models["inpaint-rows-scratches"] == "10 % of rows missing, 4 scratches"
     assert models["superres-x4"] == "4x4 box average, subsampled by 4, periodic"
     assert models["ct-limited-120deg"] == "parallel beam, 60 views over 120 deg"
+
+
+def test_help_version_and_list_usage_import_no_heavy_module():
+    # The command line starts fast when the verbs that need torch, scikit-image,
+    # matplotlib or dask are not run (the start time itself is measured by
+    # benchmarks/bench_cli.py, never asserted).
+    heavy = ("torch", "skimage", "matplotlib", "dask")
+    probe = (
+        "import sys; from pnpguard.cli import main\n"
+        "for argv in (['--help'], ['--version'], ['list', '--help'], ['list']):\n"
+        "    try:\n"
+        "        main(argv)\n"
+        "    except SystemExit:\n"
+        "        pass\n"
+        f"print(sorted(name for name in {heavy!r} if name in sys.modules))\n"
+    )
+    done = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, timeout=300, check=False)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.strip().splitlines()[-1] == "[]"
+
+
+def test_the_overview_lists_the_same_verbs_as_the_full_parser():
+    from pnpguard.cli import build_parser, overview_parser
+
+    def verbs(parser):
+        (group,) = [action for action in parser._actions if action.dest == "verb"]
+        return list(group.choices)
+
+    assert verbs(overview_parser()) == verbs(build_parser()) and sorted(verbs(build_parser())) == sorted(VERBS)
+
+
+def test_import_pnpguard_loads_the_api_on_first_use():
+    probe = (
+        "import sys, pnpguard\n"
+        "print('torch' in sys.modules)\n"
+        "print(callable(pnpguard.forward_backward), 'torch' in sys.modules, len(pnpguard.__all__) > 50)\n"
+    )
+    done = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, timeout=300, check=False)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.split() == ["False", "True", "True", "True"]

@@ -136,6 +136,42 @@ def test_layouts_dtypes_and_kinds_are_preserved(dtype):
     assert np.array_equal(batch[0, 0].numpy(), image)  # input untouched
 
 
+@pytest.mark.parametrize("make", [lambda: residual_cnn(0.1), lambda: averaged_cnn(0.1, theta=0.75)])
+def test_a_float64_input_runs_the_network_in_its_weights_precision(make):
+    denoiser = make()
+    image = bundled_image("camera")[:32, :40]
+    single = denoiser(image.astype(np.float32))
+    double = denoiser(image.astype(np.float64))
+    # Cast once in and once out: the float64 result is the float32 result, widened exactly.
+    assert double.dtype == np.float64
+    np.testing.assert_array_equal(double, single.astype(np.float64))
+    assert denoiser.precision(torch.float64) == torch.float32
+    assert denoiser.rounding_eps(torch.float64) == torch.finfo(torch.float32).eps
+    # The traced path casts the same way, and gradients flow through the casts.
+    t = torch.from_numpy(image.astype(np.float64)).requires_grad_(True)
+    out = denoiser.apply_traced(t)
+    assert out.dtype == torch.float64
+    out.sum().backward()
+    assert t.grad is not None and t.grad.dtype == torch.float64
+
+
+def test_the_check_probes_a_network_at_the_input_precision():
+    # Rounding of float32 outputs would hide small-scale expansions from the check's pairs, so
+    # the check evaluates a float64 sample with a float64 copy of the network (and allows for
+    # float64 rounding), while runs compute in float32.
+    denoiser = residual_cnn(0.1)
+    image = torch.from_numpy(bundled_image("camera")[:32, :40].astype(np.float64))
+    reference = load_network(RESIDUAL_WEIGHTS).double()  # independent float64 copy of the weights
+    with torch.no_grad():
+        expected = reference(image[None, None].clone(), 0.1)[0, 0]
+    with denoiser.at_input_precision():
+        assert denoiser.precision(torch.float64) == torch.float64
+        probed = denoiser.apply(image)
+    torch.testing.assert_close(probed, expected, rtol=0, atol=1e-12)
+    assert denoiser.precision(torch.float64) == torch.float32
+    assert not torch.equal(denoiser.apply(image), probed)  # outside the block: float32 compute
+
+
 def test_sigma_and_theta_outside_trained_range_are_refused():
     with pytest.raises(ValueError, match="sigma"):
         residual_cnn(0.5)

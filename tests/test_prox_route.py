@@ -130,7 +130,7 @@ def test_weak_convexity_constant_is_the_most_negative_curvature_of_phi():
 def test_one_step_decreases_step_f_plus_phi_by_the_stated_amount():
     # Quadratic case, everything in numpy: F = step f + phi with f(x) = ||A x - y||^2 / 2,
     # x+ = (I - Q)(x - step A^T (A x - y)); F(x+) <= F(x) - c ||x+ - x||^2 for c of the theorem
-    # (docs/theory.md section 13), on random points and steps inside the window.
+    # (docs/theory.md section 15), on random points and steps inside the window.
     n = 16
     smoothness = 0.7
     matrix = _symmetric(np.linspace(-smoothness, smoothness, n), seed=4)

@@ -43,11 +43,12 @@ def _blur_problem(noise=0.05, shape=SHAPE):
     return op, truth, y
 
 
-def test_forward_backward_with_soft_thresholding_solves_the_lasso():
+@pytest.mark.parametrize("accelerate", [False, True])
+def test_forward_backward_with_soft_thresholding_solves_the_lasso(accelerate):
     op, _, y = _blur_problem()
     sigma, threshold = 0.5, 0.02
     fidelity = pg.LeastSquares(op, y, sigma=sigma)
-    result = pg.forward_backward(fidelity, _soft(threshold), max_iter=5000, tol=1e-11)
+    result = pg.forward_backward(fidelity, _soft(threshold), max_iter=5000, tol=1e-11, accelerate=accelerate)
     assert result.converged and result.guarantee is not None
     step = result.step
     # FB with D = soft(t) and step eta minimises ||Ax - y||^2/(2 s^2) + (t/eta)||x||_1.
@@ -57,17 +58,20 @@ def test_forward_backward_with_soft_thresholding_solves_the_lasso():
     lasso = Lasso(alpha=threshold * sigma**2 / (step * m), fit_intercept=False, tol=1e-14, max_iter=200000)
     lasso.fit(dense_matrix(op), y.ravel())
     assert_close(result.x, lasso.coef_.reshape(SHAPE), rtol=0, atol=1e-6, what="PnP-FB vs Lasso")
-    # Averaged iteration map: the fixed-point residual never increases (THEORY.md section 5).
+    # Averaged iteration map: the fixed-point residual of the plain iteration never increases
+    # (THEORY.md section 5); accelerated steps need not keep it monotone.
     residuals = result.residuals
-    assert np.all(np.diff(residuals) <= 1e-12 * residuals[0])
+    assert accelerate or np.all(np.diff(residuals) <= 1e-12 * residuals[0])
     assert not result.flags
+    assert (result.accelerated > 0) == accelerate
 
 
-def test_linear_denoiser_fixed_point_matches_a_linear_solve():
+@pytest.mark.parametrize("accelerate", [False, True])
+def test_linear_denoiser_fixed_point_matches_a_linear_solve(accelerate):
     op, _, y = _blur_problem()
     denoiser = _LinearFilter(0.1)
     fidelity = pg.LeastSquares(op, y, sigma=0.3)
-    result = pg.forward_backward(fidelity, denoiser, max_iter=20000, tol=1e-12)
+    result = pg.forward_backward(fidelity, denoiser, max_iter=20000, tol=1e-12, accelerate=accelerate)
     assert result.converged and result.guarantee.status == "proved"
     # Fixed point x = G (x - eta A^T (A x - y) / s^2): (I - G + eta G A^T A / s^2) x = eta G A^T y / s^2.
     a = dense_matrix(op)
@@ -78,7 +82,8 @@ def test_linear_denoiser_fixed_point_matches_a_linear_solve():
     assert_close(result.x, x.reshape(SHAPE), rtol=0, atol=1e-8)
 
 
-def test_fb_dr_and_admm_reach_the_same_minimiser():
+@pytest.mark.parametrize("accelerate", [False, True])
+def test_fb_dr_and_admm_reach_the_same_minimiser(accelerate):
     op, _, y = _blur_problem()
     fidelity = pg.LeastSquares(op, y, sigma=0.2)
     denoiser = _soft(0.01)
@@ -87,7 +92,7 @@ def test_fb_dr_and_admm_reach_the_same_minimiser():
     assert fidelity.strong_convexity > 0
     eta = 1.0 / fidelity.lipschitz
     results = [
-        solver(fidelity, denoiser, step=eta, max_iter=3000, tol=1e-12)
+        solver(fidelity, denoiser, step=eta, max_iter=3000, tol=1e-12, accelerate=accelerate)
         for solver in (pg.forward_backward, pg.douglas_rachford, pg.admm)
     ]
     for result in results:
@@ -295,7 +300,8 @@ def test_non_finite_values_stop_the_run_even_under_a_warn_policy():
     assert result.flags[-1].kind == "blow_up" and "stopped by the monitor" in result.message
 
 
-def test_tv_deblurring_fixed_points_agree_across_fb_dr_and_admm():
+@pytest.mark.parametrize("accelerate", [False, True])
+def test_tv_deblurring_fixed_points_agree_across_fb_dr_and_admm(accelerate):
     # The TV prox makes the three fixed points minimisers of one strictly convex problem
     # f + (w / eta) TV (mu > 0 here) when the prox parameter equals the FB step; they agree up
     # to the inexactness of the TV solves.
@@ -307,7 +313,7 @@ def test_tv_deblurring_fixed_points_agree_across_fb_dr_and_admm():
     eta = 1.0 / fidelity.lipschitz
     report = pg.check_denoiser(tv, y)
     results = [
-        solver(fidelity, tv, report=report, step=eta, max_iter=3000, tol=1e-5)
+        solver(fidelity, tv, report=report, step=eta, max_iter=3000, tol=1e-5, accelerate=accelerate)
         for solver in (pg.forward_backward, pg.douglas_rachford, pg.admm)
     ]
     assert report.verdict == "proved" and all(r.converged and not r.flags for r in results), [r.flags for r in results]
@@ -351,7 +357,8 @@ def _tv_deblurring_reference(matrix, y, noise, weight, iterations=40000):
     return x
 
 
-def test_inexact_tv_prox_reaches_the_exact_minimiser():
+@pytest.mark.parametrize("accelerate", [False, True])
+def test_inexact_tv_prox_reaches_the_exact_minimiser(accelerate):
     # Krasnosel'skii-Mann with errors converges to the exact map's fixed point when the
     # errors are summable (Combettes, Optimization 53, 2004): the solver drives the TV
     # tolerance down. A fixed 1e-3 inner tolerance stalls measurably away from it.
@@ -363,7 +370,9 @@ def test_inexact_tv_prox_reaches_the_exact_minimiser():
     eta = 1.0 / fidelity.lipschitz
     weight = 0.004
     exact = _tv_deblurring_reference(dense_matrix(op), y, noise, weight / eta)
-    driven = pg.forward_backward(fidelity, pg.TotalVariation(weight=weight), step=eta, max_iter=3000, tol=1e-6)
+    driven = pg.forward_backward(
+        fidelity, pg.TotalVariation(weight=weight), step=eta, max_iter=3000, tol=1e-6, accelerate=accelerate
+    )
     assert driven.converged and not driven.flags
     assert any("summable" in text for text in driven.guarantee.assumptions)
     error = np.linalg.norm(driven.x - exact) / np.linalg.norm(exact)
@@ -466,3 +475,114 @@ def test_interpolated_start_fills_missing_pixels_like_scipy():
     blur = pg.LeastSquares(pg.Convolution(pg.gaussian_psf(3, 0.5), shape), truth)
     with pytest.raises(TypeError, match="needs a PixelMask"):
         pg.interpolated_start(blur)
+
+
+def test_the_safeguard_rejects_an_anderson_step_that_increases_the_residual():
+    from pnpguard.solvers._anderson import Anderson
+
+    # Constructed case: the forward-backward map of a 2-D Lasso, T x = soft_0.7(x - A^T (A x - y)),
+    # averaged (||A||^2 = 1.008 < 2). From x0 = (2, 2) the first type-I Anderson candidate lands
+    # where the residual is larger than at the point it was proposed from.
+    a = torch.tensor([[0.6, -0.8], [0.15, 0.0]], dtype=torch.float64)
+    y = torch.tensor([-0.3, 0.6], dtype=torch.float64)
+
+    def step(x):
+        z = x - a.T @ (a @ x - y)
+        return torch.sign(z) * torch.clamp(z.abs() - 0.7, min=0) - x
+
+    # D = 1 makes the bound ||f_0|| (n + 1)^-(1 + eps) tight enough for the constructed increase
+    # to exceed it (the shipped D = 1e6 is the paper's loose value).
+    anderson = Anderson(3, safeguard=1.0)
+    x = torch.tensor([2.0, 2.0], dtype=torch.float64)
+    f = step(x)
+    raw_rises = []
+    for _ in range(200):
+        candidate = anderson.propose(x, f, float(torch.linalg.vector_norm(f)))
+        if candidate is None:
+            x = x + f
+        else:
+            f_candidate = step(candidate)
+            raw_rises.append(float(torch.linalg.vector_norm(f_candidate)) > float(torch.linalg.vector_norm(f)))
+            x = candidate if anderson.admits(float(torch.linalg.vector_norm(f_candidate))) else x + f
+        f = step(x)
+        if float(torch.linalg.vector_norm(f)) < 1e-13:
+            break
+    assert raw_rises[0] and anderson.rejected >= 1  # the raw step raised the residual and was turned down
+    assert anderson.accepted >= 1
+    # The safeguarded iteration still reaches the Lasso solution. Reference: scikit-learn's Lasso,
+    # objective ||y - Xw||^2 / (2 m) + alpha ||w||_1 with m = 2, so alpha = 0.7 / 2.
+    lasso = Lasso(alpha=0.35, fit_intercept=False, tol=1e-14, max_iter=100000).fit(a.numpy(), y.numpy())
+    np.testing.assert_allclose(x.numpy(), lasso.coef_, atol=1e-8)
+
+
+def test_gamma_and_the_denoiser_strength_set_the_douglas_rachford_fixed_point_together():
+    op, _, y = _blur_problem()
+    fidelity = pg.LeastSquares(op, y, sigma=0.2)
+    mu, lipschitz = fidelity.strong_convexity, fidelity.lipschitz
+    assert mu > 0
+    gamma, threshold = 1.0 / lipschitz, 0.01
+    best = 1.0 / np.sqrt(mu * lipschitz)  # Giselsson & Boyd 2017, Thm. 1: minimiser of the reflected prox's constant
+    slow = pg.douglas_rachford(fidelity, _soft(threshold), step=gamma, max_iter=20000, tol=1e-12)
+    # soft_t = prox of t ||.||_1: the fixed point minimises f + (t / gamma) ||x||_1, so t / gamma fixes it.
+    fast = pg.douglas_rachford(fidelity, _soft(threshold * best / gamma), step=best, max_iter=20000, tol=1e-12)
+    assert slow.converged and fast.converged
+    assert_close(fast.x, slow.x, rtol=0, atol=1e-8, what="same t / gamma, same fixed point")
+    assert fast.iterations < slow.iterations
+    # Reference for both: scikit-learn's Lasso on ||y - Xw||^2 / (2 m) + alpha ||w||_1 with
+    # alpha = (t / gamma) s^2 / m.
+    lasso = Lasso(alpha=threshold / gamma * 0.2**2 / y.size, fit_intercept=False, tol=1e-14, max_iter=200000)
+    lasso.fit(dense_matrix(op), y.ravel())
+    assert_close(slow.x, lasso.coef_.reshape(SHAPE), rtol=0, atol=1e-6, what="DR vs Lasso")
+    # The guarantee says so, with the same numbers.
+    text = " ".join(slow.guarantee.assumptions)
+    assert "f + (lam / gamma) R" in text and f"gamma = {best:.4g}" in text
+
+
+def test_threads_option_sets_torch_threads_for_the_run_and_restores_them():
+    import pnpguard._threads as threads_module
+
+    op, _, y = _blur_problem()
+    fidelity = pg.LeastSquares(op, y, sigma=0.5)
+    seen = []
+    before = torch.get_num_threads()
+    pg.forward_backward(fidelity, _soft(0.02), max_iter=3, threads=2, callback=lambda s: seen.append(torch.get_num_threads()))
+    assert seen == [2, 2, 2] and torch.get_num_threads() == before
+    with pytest.raises(ValueError, match="threads"):
+        pg.forward_backward(fidelity, _soft(0.02), threads=0)
+    # The default never exceeds the caller's setting, and counts busy CPUs out.
+    threads_module._cache = (float("inf"), 0)  # a measurement that found no idle CPU
+    try:
+        assert threads_module.default_threads() == 1
+    finally:
+        threads_module._cache = None
+    assert 1 <= threads_module.default_threads() <= torch.get_num_threads()
+
+
+def test_an_accelerated_run_still_catches_an_optimistic_estimate_with_reproducible_witnesses():
+    op, _, y = _blur_problem()
+    fidelity = pg.LeastSquares(op, y, sigma=0.2)
+    denoiser = _LinearFilter(0.225)  # spectrum [-0.8, 1]: theta = 0.9 in truth
+    optimistic = pg.CheckReport(
+        denoiser=denoiser.name, theta=0.3, lipschitz=1.0, residual_lipschitz=0.6,
+        verdict="estimated", refuted=None, witnesses={}, calls=0, seconds=0.0, method="a lucky search",
+    )
+    result = pg.forward_backward(
+        fidelity, denoiser, report=optimistic, x0=RNG.standard_normal(SHAPE), max_iter=50, accelerate=True
+    )
+    assert result.accelerated > 0
+    broken = [flag for flag in result.flags if flag.kind == "assumption_broken"]
+    assert any("accepted points" in flag.message for flag in broken)  # pairs joined by accelerated steps
+    lam = result.relaxation
+
+    def relaxed_map(v):
+        return v + lam * (denoiser.apply(v - result.step * fidelity.apply_grad(v)) - v)
+
+    for flag in broken:
+        # Whether the two accepted points are joined by a plain step or not, the pair's
+        # statistic for T_lam (THEORY.md section 2) is the one the monitor reports.
+        first, second = flag.witness
+        a = first - second
+        r = a - (relaxed_map(first) - relaxed_map(second))
+        statistic = float(torch.sum(r * r) / (2 * torch.sum(a * r)))
+        assert statistic == pytest.approx(flag.value, rel=1e-5)
+        assert statistic > result.guarantee.constant

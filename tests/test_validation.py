@@ -48,6 +48,8 @@ POSITIVE_INTEGERS = {
     "ResidualCNN": ("unshuffle", lambda n: ResidualCNN(depth=2, width=4, unshuffle=n)),
     "cells": ("count", lambda n: ph.cells(16, count=n)),
     "run_suite": ("threads", lambda n: bench.run_suite("quick", threads=n)),
+    "RunOptions.threads": ("threads", lambda n: pg.RunOptions(threads=n)),
+    "RunOptions.anderson_memory": ("anderson_memory", lambda n: pg.RunOptions(anderson_memory=n)),
 }
 
 # (None is a valid "not set" for some of these, so it is not in the list.)

@@ -3,39 +3,36 @@
 Measure a denoiser (averagedness, Lipschitz constants), turn the measurements
 into admissible step sizes through published theorems or refuse with a reason,
 and monitor every run's fixed-point residual.
+
+The public names are imported on first use (PEP 562): ``import pnpguard``
+alone loads no torch, so the command line starts quickly; the first attribute
+access (``pnpguard.forward_backward``, ``from pnpguard import *``) imports
+:mod:`pnpguard._api`, which holds the export list.
 """
 
-from . import phantoms
+from __future__ import annotations
+
+import importlib
+import importlib.util
+from typing import Any
+
 from ._version import package_version
-from .check import *  # noqa: F403
-from .check import __all__ as _check_all
-from .denoisers import *  # noqa: F403
-from .denoisers import __all__ as _denoisers_all
-from .fidelity import LeastSquares
-from .guarantee import *  # noqa: F403
-from .guarantee import __all__ as _guarantee_all
-from .learned import *  # noqa: F403
-from .learned import __all__ as _learned_all
-from .metrics import psnr, ssim
-from .operators import *  # noqa: F403
-from .operators import __all__ as _operators_all
-from .solvers import *  # noqa: F403
-from .solvers import __all__ as _solvers_all
-from .starts import fill_missing, interpolated_start
 
 __version__ = package_version()
 
-__all__ = [
-    "LeastSquares",
-    "fill_missing",
-    "interpolated_start",
-    "phantoms",
-    "psnr",
-    "ssim",
-    *_check_all,
-    *_denoisers_all,
-    *_guarantee_all,
-    *_learned_all,
-    *_operators_all,
-    *_solvers_all,
-]
+
+def __getattr__(name: str) -> Any:
+    if name.startswith("_") and name != "__all__":
+        raise AttributeError(f"module 'pnpguard' has no attribute {name!r}")
+    if importlib.util.find_spec(f"pnpguard.{name}") is not None:  # a subpackage: import it alone
+        return importlib.import_module(f"pnpguard.{name}")
+    _api = importlib.import_module("pnpguard._api")
+    exported = {key: getattr(_api, key) for key in _api.__all__}
+    globals().update(exported, __all__=_api.__all__)
+    if name in globals():
+        return globals()[name]
+    raise AttributeError(f"module 'pnpguard' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(__getattr__("__all__")))

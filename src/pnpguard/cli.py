@@ -33,6 +33,19 @@ import numpy as np
 
 PROG = "pnpguard"
 
+#: The verbs and their one-line help, in the order ``--help`` lists them. The overview
+#: parser (``pnpguard --help``, ``--version``) is built from this table alone, so that
+#: it imports nothing heavy; each verb's own parser is built by :func:`build_parser`.
+VERBS = {
+    "demo": "run the main demonstration",
+    "check": "check a denoiser on an image and print the guarantees per algorithm",
+    "benchmark": "run a benchmark suite and write a result file",
+    "compare": "compare two result files; exit status 1 on a regression",
+    "report": "write a markdown report with figures from a result file",
+    "recover": "reconstruct from data files with a guarantee, write the result and a JSON record",
+    "list": "list suites, tasks, shipped denoisers or phantoms",
+}
+
 #: Smallest image side the verbs accept (the SSIM window and the blur kernels fit).
 MIN_SIDE = 16
 
@@ -196,6 +209,10 @@ _side = _integer(MIN_SIDE)
 # torch crashes the interpreter on absurd thread counts: allow up to the machine's CPUs.
 _CPUS = os.cpu_count() or 1
 _threads = _integer(1, _CPUS, expected=f"an integer from 1 to {_CPUS} (the CPUs of this machine)")
+_THREADS_HELP = (
+    "torch threads, at most the machine's CPUs (default: the CPUs idle when the run starts, so a "
+    "run beside another busy process does not oversubscribe the machine)"
+)
 
 
 def _aspects(text: str) -> tuple[str, ...]:
@@ -212,13 +229,16 @@ def _aspects(text: str) -> tuple[str, ...]:
 
 # --------------------------------------------------------------------- verbs
 def _demo(args: argparse.Namespace) -> int:
+    from ._threads import torch_threads
     from .demo import run_demo
 
-    run_demo(size=args.size, seed=args.seed)
+    with torch_threads(args.threads):
+        run_demo(size=args.size, seed=args.seed)
     return 0
 
 
 def _check(args: argparse.Namespace) -> int:
+    from ._threads import torch_threads
     from .bench import CAUTION, denoiser_names, get_denoiser, get_task
     from .check import check_denoiser
     from .guarantee import Refused, admissible
@@ -250,9 +270,10 @@ def _check(args: argparse.Namespace) -> int:
     print(f"denoiser {denoiser.name}: {how}")
     print()
     try:
-        report = check_denoiser(
-            denoiser, problem.start(), budget=args.budget, seed=args.seed, cross_check=args.cross_check
-        )
+        with torch_threads(args.threads):
+            report = check_denoiser(
+                denoiser, problem.start(), budget=args.budget, seed=args.seed, cross_check=args.cross_check
+            )
     except Exception as error:
         if not user:
             raise
@@ -373,7 +394,11 @@ def _report(args: argparse.Namespace) -> int:
 
 
 def _list(args: argparse.Namespace) -> int:
-    from . import phantoms
+    if args.what == "phantoms":
+        from . import phantoms
+
+        print("\n".join(phantoms.phantom_names()))
+        return 0
     from .bench import get_suite, get_task, shipped_denoisers, suite_names, task_names
 
     if args.what == "suites":
@@ -398,11 +423,9 @@ def _list(args: argparse.Namespace) -> int:
             for record in ALGORITHMS.values()
         ]
         print(_table(("algorithm", "short", "parameter", "monitored", "theorem routes"), rows))
-    elif args.what == "denoisers":
+    else:
         for entry in shipped_denoisers():
             print(f"{entry.name}: {entry.description}; strength = {entry.strength}; {entry.structure}")
-    else:
-        print("\n".join(phantoms.phantom_names()))
     return 0
 
 
@@ -539,13 +562,9 @@ def _table(header: Sequence[str], rows: Sequence[Sequence[str]]) -> str:
 
 
 # -------------------------------------------------------------------- parser
-def build_parser() -> argparse.ArgumentParser:
-    """The argument parser of the ``pnpguard`` command."""
+def _overview_parser() -> tuple[argparse.ArgumentParser, Any]:
+    """The top-level parser and its verb group, without any verb's arguments (imports nothing heavy)."""
     from . import __version__
-    from .bench import DEFAULT_PSNR_TOL, DEFAULT_SSIM_TOL, suite_names
-    from .check._check import MIN_BUDGET
-    from .demo import DEFAULT_SEED, DEFAULT_SIZE, MIN_SIZE
-    from .splitting import ALGORITHMS
 
     parser = _Parser(
         prog=PROG,
@@ -554,8 +573,27 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"{PROG} {__version__}")
     verbs = parser.add_subparsers(dest="verb", metavar="VERB", required=True)
+    return parser, verbs
 
-    demo = verbs.add_parser("demo", help="run the main demonstration",
+
+def overview_parser() -> argparse.ArgumentParser:
+    """The parser of ``pnpguard --help`` and ``--version``: every verb of :data:`VERBS`, no verb's arguments."""
+    parser, verbs = _overview_parser()
+    for name, text in VERBS.items():
+        verbs.add_parser(name, help=text)
+    return parser
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of the ``pnpguard`` command."""
+    from .bench import DEFAULT_PSNR_TOL, DEFAULT_SSIM_TOL, suite_names
+    from .check._check import MIN_BUDGET
+    from .demo import DEFAULT_SEED, DEFAULT_SIZE, MIN_SIZE
+    from .splitting import ALGORITHMS
+
+    parser, verbs = _overview_parser()
+
+    demo = verbs.add_parser("demo", help=VERBS["demo"],
                             description="Run the main demonstration of the library: deblur a "
                             "synthetic microscope frame of cells with a guarantee, and show the "
                             "refusal of a black-box denoiser.")
@@ -563,11 +601,12 @@ def build_parser() -> argparse.ArgumentParser:
                       help=f"side of the frame in pixels, at least {MIN_SIZE} (default: %(default)s)")
     demo.add_argument("--seed", type=_seed, default=DEFAULT_SEED, metavar="N",
                       help="seed of the frame and of the noise (default: %(default)s)")
+    demo.add_argument("--threads", type=_threads, default=None, help=_THREADS_HELP)
     demo.set_defaults(run=_demo)
 
     check = verbs.add_parser(
         "check",
-        help="check a denoiser on an image and print the guarantees per algorithm",
+        help=VERBS["check"],
         description="Measure a denoiser's averagedness and Lipschitz constants on a sample "
         "image (a proof for denoisers with verified structure, a search otherwise) and print, "
         "for each PnP algorithm, the admissible step and relaxation or the reasons for refusal. "
@@ -594,11 +633,12 @@ def build_parser() -> argparse.ArgumentParser:
                             f"(default: all: {', '.join(ALGORITHMS)})")
     check.add_argument("--cross-check", action="store_true",
                        help="also search pairs when the structure proves the constants")
+    check.add_argument("--threads", type=_threads, default=None, help=_THREADS_HELP)
     check.set_defaults(run=_check)
 
     bench = verbs.add_parser(
         "benchmark",
-        help="run a benchmark suite and write a result file",
+        help=VERBS["benchmark"],
         description="Run every task of a suite with every guarded PnP method (algorithm x "
         "shipped denoiser) and the classical baselines, with the frozen tuned parameters; "
         "write a JSON result file and, unless --no-images, the images beside it (.npz).",
@@ -629,7 +669,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     compare = verbs.add_parser(
         "compare",
-        help="compare two result files; exit status 1 on a regression",
+        help=VERBS["compare"],
         description="Compare a new result file with an old (baseline) one: PSNR/SSIM drops "
         "beyond the tolerances, changed run status, check verdict or guarantee, new monitor "
         "flags, missing runs (and, on request, timings). Exit status 1 on a regression.",
@@ -649,7 +689,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     report = verbs.add_parser(
         "report",
-        help="write a markdown report with figures from a result file",
+        help=VERBS["report"],
         description="Write report.md (task x method table, ranking per task, best PnP against "
         "best baseline per family, guarantees and flags) and PNG figures (image panels, "
         "residual curves; needs matplotlib and the images saved with the results).",
@@ -659,13 +699,9 @@ def build_parser() -> argparse.ArgumentParser:
     report.add_argument("--no-figures", action="store_true", help="write the markdown only")
     report.set_defaults(run=_report)
 
-    listing = verbs.add_parser("list", help="list suites, tasks, shipped denoisers or phantoms",
-                               description="List what the other verbs accept by name.")
-    listing.add_argument("what", choices=("algorithms", "denoisers", "phantoms", "suites", "tasks"))
-    listing.set_defaults(run=_list)
     recover = verbs.add_parser(
         "recover",
-        help="reconstruct from data files with a guarantee, write the result and a JSON record",
+        help=VERBS["recover"],
         description="Reconstruct from your own files: the data (PNG, TIFF including 16-bit and "
         "stacks, or .npy; colour images and stacks run as one batch) and the forward model (a PSF "
         "file, a binary mask file or a system matrix as .npy or sparse .npz). The denoiser is "
@@ -714,10 +750,37 @@ def build_parser() -> argparse.ArgumentParser:
                          help="progress bar on standard error (default: when it is a terminal)")
     recover.set_defaults(run=_recover)
 
+    _add_list(verbs)
+    _set_usage(verbs)
+    return parser
+
+
+def _add_list(verbs: Any) -> None:
+    listing = verbs.add_parser("list", help=VERBS["list"],
+                               description="List what the other verbs accept by name.")
+    listing.add_argument("what", choices=("algorithms", "denoisers", "phantoms", "suites", "tasks"))
+    listing.set_defaults(run=_list)
+
+
+def _set_usage(verbs: Any) -> None:
     for verb in verbs.choices.values():
         # One line naming everything the verb accepts, for the unknown-argument error.
         verb.set_defaults(usage=" ".join(verb.format_usage().split()))
-    return parser
+
+
+def _parser_for(words: Sequence[str]) -> argparse.ArgumentParser:
+    """The parser ``words`` need: only a verb's own arguments need the library imported.
+
+    Help, version and usage errors before a verb come from the overview parser;
+    ``list`` gets a parser of its own verb only (its arguments need nothing heavy).
+    """
+    verb = next((word for word in words if not word.startswith("-")), None)
+    if verb == "list":
+        parser, verbs = _overview_parser()
+        _add_list(verbs)
+        _set_usage(verbs)
+        return parser
+    return build_parser() if verb in VERBS else overview_parser()
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -729,8 +792,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         Arguments without the program name; default ``sys.argv[1:]``.
     """
     try:
-        parser = build_parser()
-        args, extra = parser.parse_known_args(argv)
+        words = sys.argv[1:] if argv is None else list(argv)
+        args, extra = _parser_for(words).parse_known_args(words)
         if extra:
             raise UsageError(f"unrecognized arguments: {' '.join(extra)}; {args.usage}")
         return args.run(args)

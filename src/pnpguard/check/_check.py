@@ -124,7 +124,8 @@ def check_denoiser(
             tolerance=structure.tolerance,
             **strength,
         )
-    search = _run_search(denoiser, samples, budget, seed)
+    with denoiser.at_input_precision():  # rounding of a coarser precision would hide small-scale pairs
+        search = _run_search(denoiser, samples, budget, seed)
     seconds = time.perf_counter() - start
     witnesses = {
         name: Witness(name, best.value, best.x, best.y, kind)

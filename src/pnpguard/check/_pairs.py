@@ -26,6 +26,7 @@ References
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import torch
@@ -59,6 +60,18 @@ def averagedness_statistic(
     return theta, informative
 
 
+def averagedness_value(r_norm: float, inner: float, a_norm: float, allowance: float) -> tuple[float, bool]:
+    """:func:`averagedness_statistic` of one pair, on Python floats (the run monitor's per-step form).
+
+    The same formula and the same informativeness test, without building
+    tensors for four numbers on every iteration.
+    """
+    informative = r_norm**2 > INFORMATIVE_FACTOR * allowance * a_norm
+    if inner > 0:
+        return r_norm**2 / (2.0 * max(inner, torch.finfo(torch.float64).tiny)), informative
+    return math.inf, informative
+
+
 @dataclass(frozen=True)
 class PairStatistics:
     """Statistics of a batch of pairs, one entry per pair (float64 tensors).
@@ -90,20 +103,26 @@ def _flat_norm(t: torch.Tensor) -> torch.Tensor:
     return torch.linalg.vector_norm(t.reshape(t.shape[0], -1), dim=1)
 
 
-def rounding_allowance(dx: torch.Tensor, dy: torch.Tensor) -> torch.Tensor:
-    """Per-pair absolute allowance for rounding in ``Dx - Dy`` (float64)."""
-    eps = torch.finfo(dx.dtype).eps
+def rounding_allowance(dx: torch.Tensor, dy: torch.Tensor, eps: float | None = None) -> torch.Tensor:
+    """Per-pair absolute allowance for rounding in ``Dx - Dy`` (float64).
+
+    ``eps`` is the machine epsilon of the precision the denoiser computed in
+    (:meth:`Denoiser.rounding_eps`); default that of the outputs' dtype.
+    """
+    eps = torch.finfo(dx.dtype).eps if eps is None else eps
     return ROUNDING_FACTOR * eps * (_flat_norm(dx.double()) + _flat_norm(dy.double()))
 
 
 def pair_statistics(
-    x: torch.Tensor, y: torch.Tensor, dx: torch.Tensor, dy: torch.Tensor
+    x: torch.Tensor, y: torch.Tensor, dx: torch.Tensor, dy: torch.Tensor, eps: float | None = None
 ) -> PairStatistics:
     """Statistics of the pairs ``(x[k], y[k])`` with outputs ``dx[k]``, ``dy[k]``.
 
-    All four tensors share the shape ``(K, ...)``: ``K`` pairs.
+    All four tensors share the shape ``(K, ...)``: ``K`` pairs. ``eps``: the
+    machine epsilon of the denoiser's computing precision (see
+    :func:`rounding_allowance`).
     """
-    allowance = rounding_allowance(dx, dy)
+    allowance = rounding_allowance(dx, dy, eps)
     x, y, dx, dy = x.double(), y.double(), dx.double(), dy.double()
     a = (x - y).reshape(x.shape[0], -1)
     out = (dx - dy).reshape(x.shape[0], -1)

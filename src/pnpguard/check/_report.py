@@ -48,8 +48,9 @@ class Witness:
     def reproduce(self, denoiser: Denoiser) -> float:
         """Evaluate the denoiser on the pair again and return the statistic."""
         both = torch.cat([self.x, self.y])
-        out = denoiser.apply(both)
-        stats = pair_statistics(self.x, self.y, out[:1], out[1:])
+        with denoiser.at_input_precision():  # as the check evaluated it
+            out = denoiser.apply(both)
+        stats = pair_statistics(self.x, self.y, out[:1], out[1:], denoiser.rounding_eps(out.dtype))
         return float(_pick(stats, self.quantity)[0])
 
 

@@ -172,7 +172,7 @@ class PairSearch:
         dy = self._evaluate(ys)
         x = self.samples[index].expand_as(ys)
         dx = self.sample_outputs[index].expand_as(ys)
-        stats = pair_statistics(x, ys, dx, dy)
+        stats = pair_statistics(x, ys, dx, dy, self.denoiser.rounding_eps(dy.dtype))
         self._record(x, ys, stats)
         return dy, stats
 
@@ -342,7 +342,9 @@ class PairSearch:
                 dy = self.denoiser.apply_traced(point)
                 statistic = self._theta_of(index, point, dy)
                 (gradient,) = torch.autograd.grad(statistic, point)
-            stats = pair_statistics(x, point.detach(), self.sample_outputs[index], dy.detach())
+            stats = pair_statistics(
+                x, point.detach(), self.sample_outputs[index], dy.detach(), self.denoiser.rounding_eps(dy.dtype)
+            )
             self._record(x, point.detach(), stats)
             current = float(stats.theta[0])
             if not math.isfinite(current) or not bool(torch.isfinite(gradient).all()):

@@ -13,8 +13,9 @@ class FrozenNetwork:
 
     The network is deep-copied (later changes to the caller's module do not
     reach it), put in evaluation mode and its parameters stop requiring
-    gradients; :meth:`like` returns the copy that matches a tensor, so a float64
-    input runs a float64 network.
+    gradients; :meth:`like` returns the copy that matches a tensor (a float64
+    input runs a float64 network), :meth:`on` the copy in the weights' own
+    dtype on a device.
     """
 
     def __init__(self, module: nn.Module):
@@ -24,6 +25,21 @@ class FrozenNetwork:
         for parameter in self.module.parameters():
             parameter.requires_grad_(False)
         self._copies: dict[tuple[torch.dtype, torch.device], nn.Module] = {}
+
+    @property
+    def dtype(self) -> torch.dtype:
+        """The weights' dtype (float32 for a network without floating-point parameters)."""
+        for tensor in (*self.module.parameters(), *self.module.buffers()):
+            if tensor.is_floating_point():
+                return tensor.dtype
+        return torch.float32
+
+    def on(self, device: torch.device) -> nn.Module:
+        """The copy in the weights' own dtype on ``device``."""
+        key = (self.dtype, device)
+        if key not in self._copies:
+            self._copies[key] = copy.deepcopy(self.module).to(device=device)
+        return self._copies[key]
 
     def like(self, t: torch.Tensor) -> nn.Module:
         """The copy in ``t``'s dtype and on its device."""

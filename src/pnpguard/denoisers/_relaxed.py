@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from typing import Any
 
 import torch
@@ -28,6 +29,16 @@ class _Relaxed(Denoiser):
 
     def _denoise(self, t: torch.Tensor) -> torch.Tensor:
         return (1.0 - self.s) * t + self.s * self.denoiser._run(t)
+
+    def precision(self, dtype: torch.dtype) -> torch.dtype:
+        """The inner denoiser's precision."""
+        return self.denoiser.precision(dtype)
+
+    @contextmanager
+    def at_input_precision(self) -> Iterator[None]:
+        """The inner denoiser at the input's precision."""
+        with self.denoiser.at_input_precision():
+            yield
 
     def tolerance_driver(self) -> Callable[[torch.Tensor, float], torch.Tensor] | None:
         """The inner driver at tolerance ``tol / s`` (the relaxed map's error is ``s`` times the inner one's)."""

@@ -268,6 +268,11 @@ class _ModuleDenoiser(Denoiser):
         """The wrapped module."""
         return self._module
 
+    def precision(self, dtype: torch.dtype) -> torch.dtype:
+        """The module's parameter dtype (``dtype`` for a module without parameters)."""
+        placement = _module_dtype_device(self._module, self.name)
+        return dtype if placement is None else placement[0]
+
     def _denoise(self, t: torch.Tensor) -> torch.Tensor:
         placement = _module_dtype_device(self._module, self.name)
         dtype, device = placement if placement is not None else (t.dtype, t.device)

@@ -13,6 +13,7 @@ from ..splitting import ALGORITHMS
 from ..splitting import algorithm as algorithm_record
 from ._refused import Refused
 from ._routes import ROUTES, Constants, MapKind, Route, Window, find_route, routes_for, theta_limit
+from ._theorems import optimal_prox_parameter, same_fixed_point_strength
 
 #: Relative inflation of estimated constants before use (our choice: the search
 #: typically lands within 1 % of the true constant on test maps with known values).
@@ -270,6 +271,30 @@ def _assumptions(c: Constants, report: CheckReport, route: Route) -> tuple[str, 
     return tuple(texts)
 
 
+def _parameter_trade_off(algorithm: str, gamma: float, c: Constants, report: CheckReport) -> tuple[str, ...]:
+    """For Douglas-Rachford and ADMM: how ``gamma`` and the denoiser's strength set the fixed point together."""
+    if algorithm_record(algorithm).step_name != "gamma" or not math.isfinite(gamma):
+        return ()
+    text = (
+        f"gamma = {gamma:.4g} is part of the model, not only a speed setting: for a denoiser D = prox of "
+        "lam R the fixed points minimise f + (lam / gamma) R, so a larger gamma weakens the prior as a "
+        "weaker denoiser would; gamma and lam (for a Gaussian denoiser of level sigma read as MAP, lam = "
+        "sigma^2) move together for the same fixed point (docs/theory.md section 14)"
+    )
+    if c.strong_convexity > 0:
+        best = optimal_prox_parameter(c.strong_convexity, c.lipschitz)
+        same = (
+            f"; the same fixed point is reached fastest by the linear-rate bound at gamma = {best:.4g} "
+            "(1 / sqrt(mu L), Giselsson & Boyd 2017)"
+        )
+        if report.sigma is not None:
+            same += f" with the strength set to {same_fixed_point_strength(report.sigma, gamma, best):.4g}"
+        text += same
+    else:
+        text += "; with mu = 0 no rate theorem singles out a fastest gamma for the same fixed point"
+    return (text,)
+
+
 def _guarantee(
     algorithm: str, route: Route, window: Window, c: Constants, report: CheckReport
 ) -> Guarantee:
@@ -289,7 +314,7 @@ def _guarantee(
         map_kind=certified.kind,
         constant=constant,
         theorem=route.theorem,
-        assumptions=_assumptions(c, report, route),
+        assumptions=_assumptions(c, report, route) + _parameter_trade_off(algorithm, window.step, c, report),
         status=status,
         theta=c.theta,
         residual_lipschitz=c.residual_lipschitz,

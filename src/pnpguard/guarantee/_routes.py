@@ -487,7 +487,7 @@ ROUTES: tuple[Route, ...] = (
             "phi(D(z)) = g(z) - ||grad g(z)||^2 / 2 (Hurault, Leclaire & Papadakis, ICML 2022, Prop. 3.1, "
             "number from memory; Gribonval & Nikolova, J. Math. Imaging Vis. 62 (2020)); the plain step is a "
             "proximal gradient step on step f + phi, which decreases it while step < (2 - M) / L_f (derived, "
-            "docs/theory.md section 13); limit points are critical points (same paper, Thm. 4.1, from memory)"
+            "docs/theory.md section 15); limit points are critical points (same paper, Thm. 4.1, from memory)"
         ),
         applies=_prox_applies,
         iteration_map=_prox_map,

@@ -174,3 +174,15 @@ def prox_descent_constant(weak_convexity: float, step: float, lipschitz: float) 
        memory).
     """
     return 1.0 - (weak_convexity + step * lipschitz) / 2.0
+
+
+def same_fixed_point_strength(sigma: float, gamma: float, new_gamma: float) -> float:
+    """The strength that keeps a Douglas-Rachford / ADMM fixed point when ``gamma`` becomes ``new_gamma``.
+
+    For a denoiser ``D = prox_{lam R}`` the fixed points minimise
+    ``gamma f + lam R``, that is ``f + (lam / gamma) R``; only ``lam / gamma``
+    matters. A denoiser for Gaussian noise of level ``sigma`` read as a MAP
+    estimator has ``lam = sigma^2``, so ``sigma sqrt(new_gamma / gamma)``
+    keeps the fixed point (derived; docs/theory.md section 14).
+    """
+    return sigma * math.sqrt(new_gamma / gamma)

@@ -5,7 +5,8 @@ from __future__ import annotations
 import hashlib
 import math
 import warnings
-from collections.abc import Callable, Iterable
+from collections.abc import Callable, Iterable, Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
 import torch
@@ -39,9 +40,11 @@ class LearnedDenoiser(Denoiser):
     """A torch network ``f(noisy, sigma, **options)`` presented as a Denoiser.
 
     Handles the layouts ``(H, W)`` and ``(N, C, H, W)`` (channels are denoised
-    separately), runs the network in the input's dtype and on its device
-    (float64 inputs use a double-precision copy of the network), and is
-    differentiable (``apply_traced``).
+    separately), runs the network in its weights' precision on the input's
+    device (a float64 input is cast to float32 once and the output cast back:
+    :meth:`precision`; the check and the monitor allow for float32 rounding),
+    and is differentiable (``apply_traced``). The check probes it at the input's
+    precision (:meth:`at_input_precision`), so rounding cannot hide an expansion.
 
     Parameters
     ----------
@@ -75,16 +78,34 @@ class LearnedDenoiser(Denoiser):
         super().__init__(name=name, sigma=positive_number(sigma, "sigma"), differentiable=True, facts=facts)
         self._options = dict(options or {})
         self.lowest_sigma = nonnegative_number(lowest_sigma, "lowest_sigma")
+        self._input_precision = False
 
     @property
     def module(self) -> nn.Module:
         """The wrapped network (float32 copy, evaluation mode)."""
         return self._network.module
 
+    def precision(self, dtype: torch.dtype) -> torch.dtype:
+        """The weights' dtype, whatever the input's (the input's inside :meth:`at_input_precision`)."""
+        return dtype if self._input_precision else self._network.dtype
+
+    @contextmanager
+    def at_input_precision(self) -> Iterator[None]:
+        """Run a copy of the network in the input's dtype within the block (the check's probes)."""
+        previous, self._input_precision = self._input_precision, True
+        try:
+            yield
+        finally:
+            self._input_precision = previous
+
     def _denoise(self, t: torch.Tensor) -> torch.Tensor:
-        # A copy, so that a network writing into its input cannot change the caller's data.
-        batch = (t[None, None] if t.ndim == 2 else t).clone()
-        out = self._network.like(t)(batch, self.sigma, **self._options)
+        # Cast once in (a copy either way, so that a network writing into its input cannot
+        # change the caller's data), computed in the weights' precision, cast back once.
+        batch = t[None, None] if t.ndim == 2 else t
+        compute = self.precision(t.dtype)
+        network = self._network.like(t) if self._input_precision else self._network.on(t.device)
+        batch = batch.clone() if batch.dtype == compute else batch.to(compute)
+        out = network(batch, self.sigma, **self._options).to(t.dtype)
         return out[0, 0] if t.ndim == 2 else out
 
 

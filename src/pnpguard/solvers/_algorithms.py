@@ -11,6 +11,7 @@ import numpy as np
 import torch
 
 from .._arrays import from_tensor, to_tensor
+from .._threads import torch_threads
 from ..check import CheckReport, check_denoiser
 from ..denoisers import Denoiser, as_denoiser
 from ..fidelity import LeastSquares
@@ -18,6 +19,7 @@ from ..guarantee import Guarantee, admissible
 from ..metrics import psnr, ssim
 from ..splitting import Algorithm
 from ..splitting import algorithm as algorithm_record
+from ._anderson import RADIUS_FACTOR, Anderson, memory_bytes
 from ._monitor import Flag, Monitor, norm
 from ._options import RunOptions, solver_signature
 from ._result import IterationState, Reconstruction
@@ -113,7 +115,18 @@ class _Run:
             scale,
             2.0 * self.relaxation * tolerance * per_tolerance,
             fixed_point=not watches_objective,
+            eps=self.denoiser.rounding_eps(start.dtype),
         )
+        anderson = None
+        if o.accelerate:
+            if self.algorithm.watches != "fixed_point":
+                raise ValueError(
+                    f"`accelerate` applies to the fixed-point algorithms; {self.algorithm.name!r} is a "
+                    "descent scheme (use accelerate=False)"
+                )
+            anderson = Anderson(o.anderson_memory, radius=RADIUS_FACTOR * scale)
+            if guarantee is not None:
+                guarantee = _accelerated_guarantee(guarantee, o.anderson_memory)
         objectives: list[float] = []
         # Without a driver the error stays at `tolerance`: residuals below what it allows
         # say nothing about the exact map's fixed point.
@@ -124,6 +137,10 @@ class _Run:
         relative: list[float] = []
         metrics: dict[str, list[float]] = {"psnr": [], "ssim": []} if self.reference is not None else {}
         v, estimate = start, start
+        # While an accelerated candidate awaits its safeguard: the plain step's point from the
+        # accepted point it was proposed from (the fallback), and that point's norm.
+        pending: tuple[torch.Tensor, float] | None = None
+        plain = True
         back_offs, converged, message = 0, False, "reached max_iter"
         bar = _progress(o.progress, o.max_iter, self.algorithm.name)
         begin = time.perf_counter()
@@ -138,10 +155,17 @@ class _Run:
             # which differs by rounding): a descent scheme recognises its own accepted point.
             candidate = image if relaxation == 1.0 else v + relaxation * (image - v)
             step = candidate - v
-            blow, candidate_size = monitor.blow_up(iteration, candidate)
             step_norm = norm(step)
+            if pending is not None:
+                fallback, fallback_size = pending
+                pending = None
+                if not anderson.admits(step_norm):
+                    # The candidate failed the safeguard: take the plain step from its origin.
+                    v, size, plain = fallback, fallback_size, True
+                    continue
+            blow, candidate_size = monitor.blow_up(iteration, candidate)
             if blow is None:
-                new_flags = monitor.observe(iteration, v, size, step, step_norm)
+                new_flags = monitor.observe(iteration, v, size, step, step_norm, plain)
                 if watches_objective:
                     descent = scheme.last
                     if not objectives and math.isfinite(descent.objective_before):
@@ -163,11 +187,14 @@ class _Run:
                 back_offs += 1
                 relaxation *= 0.5
                 monitor.certify(*(_recertify(guarantee, self.step, relaxation)))
+                if anderson is not None:
+                    anderson.restart()
                 continue
             residual = step_norm / relaxation
             residuals.append(residual)
             relative.append(residual / max(size, 1e-300))
-            size = candidate_size
+            accepted = v
+            size, plain = candidate_size, True
             v, estimate = candidate, candidate_estimate
             if watches_objective:
                 objectives.append(scheme.last.objective_after)
@@ -192,6 +219,13 @@ class _Run:
                     "established beyond it (the denoiser's tolerance cannot be driven down)"
                 )
                 break
+            if anderson is not None:
+                proposal = anderson.propose(accepted, step, step_norm)
+                if proposal is not None:
+                    pending = (v, size)
+                    v, size, plain = proposal, norm(proposal), False
+        if pending is not None:  # max_iter ran out with a candidate unevaluated: end on the plain step
+            v = pending[0]
         denoiser_input = scheme.denoiser_input(v)
         trivial = monitor.trivial(len(relative), denoiser_input, self.denoiser.apply(denoiser_input))
         if trivial is not None:
@@ -199,9 +233,14 @@ class _Run:
         seconds = time.perf_counter() - begin
         if bar is not None:
             bar.close()
-        notes = ()
+        notes: tuple[str, ...] = ()
         if guarantee is not None and relaxation != self.relaxation:
             notes = (f"relaxation lowered from {self.relaxation:g} to {relaxation:g} by back-offs",)
+        if anderson is not None:
+            notes += (
+                f"Anderson acceleration: {anderson.accepted} accelerated steps accepted, "
+                f"{anderson.rejected} candidates rejected by the safeguard",
+            )
         return Reconstruction(
             x=from_tensor(estimate, self.fidelity.kind),
             algorithm=self.algorithm.name,
@@ -221,6 +260,8 @@ class _Run:
             check_seconds=check_seconds,
             back_offs=back_offs,
             notes=notes,
+            accelerated=0 if anderson is None else anderson.accepted,
+            safeguarded=0 if anderson is None else anderson.rejected,
         )
 
 
@@ -286,6 +327,26 @@ def _inexact_guarantee(guarantee: Guarantee, tolerance: float, driven: bool) -> 
     return replace(guarantee, status="conditional", assumptions=guarantee.assumptions + (text,))
 
 
+_ACCELERATED_THEOREM = (
+    "safeguarded type-I Anderson acceleration keeps the plain iteration's convergence (Zhang, O'Donoghue "
+    "and Boyd, \"Globally convergent type-I Anderson acceleration for nonsmooth fixed-point iterations\", "
+    "SIAM J. Optim. 30(4) 2020, 3170-3197, global convergence of the safeguarded scheme, theorem number "
+    "from memory; Walker and Ni, SIAM J. Numer. Anal. 49(4) 2011; docs/theory.md section 13)"
+)
+
+
+def _accelerated_guarantee(guarantee: Guarantee, memory: int) -> Guarantee:
+    """The guarantee of an accelerated run: the plain one, plus what the safeguard keeps."""
+    size = memory_bytes(memory, 1024 * 1024, torch.float32) / 2**20
+    text = (
+        f"accelerated run (Anderson type I, memory {memory}; {size:.0f} MiB extra at 1024 x 1024 float32): "
+        "a candidate is taken only when its fixed-point residual stays below D ||r_0|| (n + 1)^-(1 + eps) "
+        "and its length is at most a fixed multiple of the plain step's, "
+        f"otherwise the plain step, so the iterates converge to a fixed point of the same map ({_ACCELERATED_THEOREM})"
+    )
+    return replace(guarantee, assumptions=guarantee.assumptions + (text,))
+
+
 def _strongest(flags: list[Flag]) -> str:
     actions = {flag.action for flag in flags}
     for action in ("stop", "back_off", "warn"):
@@ -348,7 +409,9 @@ def reconstruct(algorithm: str | Algorithm, fidelity: LeastSquares, denoiser: An
     >>> result.algorithm, result.guarantee.status
     ('forward_backward', 'proved')
     """
-    return _Run(algorithm_record(algorithm), fidelity, denoiser, RunOptions.from_keywords(options)).run()
+    record, run_options = algorithm_record(algorithm), RunOptions.from_keywords(options)
+    with torch_threads(run_options.threads):
+        return _Run(record, fidelity, denoiser, run_options).run()
 
 
 def forward_backward(fidelity: LeastSquares, denoiser: Any, **options: Any) -> Reconstruction:

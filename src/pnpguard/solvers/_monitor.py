@@ -27,7 +27,7 @@ from typing import Literal
 import torch
 
 from .._validation import choice, positive_int, positive_number
-from ..check._pairs import ROUNDING_FACTOR, averagedness_statistic
+from ..check._pairs import ROUNDING_FACTOR, averagedness_value
 from ..splitting import DescentStep
 
 Action = Literal["warn", "stop", "back_off"]
@@ -146,6 +146,10 @@ class Monitor:
         False for descent schemes, whose residuals need not fall
         monotonically and whose certificate is the sufficient decrease of the
         objective (:meth:`descent`).
+    eps : float or None
+        Machine epsilon of the rounding allowance: that of the coarser of the
+        iterates' precision and the denoiser's (:meth:`Denoiser.rounding_eps`);
+        None for the iterates' dtype.
     """
 
     policy: Policy
@@ -154,6 +158,7 @@ class Monitor:
     scale: float
     inexactness: float = 0.0
     fixed_point: bool = True
+    eps: float | None = None
     residuals: list[float] = field(default_factory=list)
     _previous_step: torch.Tensor | None = None
     _previous_point: torch.Tensor | None = None
@@ -179,13 +184,28 @@ class Monitor:
         return None, size
 
     def observe(
-        self, iteration: int, point: torch.Tensor, point_norm: float, step: torch.Tensor, residual: float
+        self,
+        iteration: int,
+        point: torch.Tensor,
+        point_norm: float,
+        step: torch.Tensor,
+        residual: float,
+        plain: bool = True,
     ) -> list[Flag]:
-        """Record the step ``d_k = v_{k+1} - v_k`` (norm ``residual``) taken from ``v_k = point``."""
+        """Record the step ``d_k = T_lam v_k - v_k`` (norm ``residual``) at ``v_k = point``.
+
+        ``plain`` says that ``point`` is the plain step from the previous
+        point (``v_k = v_(k-1) + d_(k-1)``); an accelerated run reaches some
+        points otherwise, and the pair is then judged from its own difference.
+        """
         flags = []
         if self._previous_step is not None and self.fixed_point:
-            allowance = ROUNDING_FACTOR * torch.finfo(point.dtype).eps * 2.0 * point_norm + self.inexactness
-            flags += self._compare(iteration, point, step, residual, allowance)
+            eps = torch.finfo(point.dtype).eps if self.eps is None else self.eps
+            allowance = ROUNDING_FACTOR * eps * 2.0 * point_norm + self.inexactness
+            if plain:
+                flags += self._compare(iteration, point, step, residual, allowance)
+            else:
+                flags += self._compare_pair(iteration, point, step, allowance)
         self.residuals.append(residual)
         flags += self._stall(iteration)
         self._previous_step, self._previous_point = step, point
@@ -211,15 +231,15 @@ class Monitor:
         if self.map_kind is None:
             return flags
         if self.map_kind == "averaged":
-            # a = -d_(k-1) and r = d_k - d_(k-1), so <a, r> = -<d_(k-1), r> (no cancellation).
-            r = step - previous
-            inner = -float(torch.vdot(previous.reshape(-1), r.reshape(-1)))
-            r_norm = norm(r)
-            theta, informative = averagedness_statistic(
-                *(torch.tensor(value, dtype=torch.float64) for value in (r_norm, inner, before, allowance))
-            )
-            if bool(informative) and r_norm > 0:
-                statistic = float(theta)
+            # a = -d_(k-1) and r = d_k - d_(k-1). From one inner product p = <d_(k-1), d_k>:
+            # <a, r> = ||d_(k-1)||^2 - p and ||r||^2 = ||d_k||^2 - 2 p + ||d_(k-1)||^2. Their
+            # cancellation error, about eps ||d||^2, is far below the rounding allowance
+            # eps ||v|| ||d|| that makes a pair informative (||d|| <= ||v|| once iterating).
+            p = float(torch.vdot(previous.reshape(-1), step.reshape(-1)))
+            inner = before * before - p
+            r_norm = math.sqrt(max(residual * residual - 2.0 * p + before * before, 0.0))
+            statistic, informative = averagedness_value(r_norm, inner, before, allowance)
+            if informative and r_norm > 0:
                 if statistic > self.constant + 1e-6:
                     flags.append(
                         self._flag(
@@ -241,6 +261,58 @@ class Monitor:
                         f"||d_(k+1)|| / ||d_k|| = {residual / before:.6g} > certified "
                         f"{self.map_kind} factor {factor:.6g}",
                         residual / before,
+                        witness,
+                    )
+                )
+        return flags
+
+    def _compare_pair(self, iteration, point, step, allowance) -> list[Flag]:
+        """The checks of :meth:`_compare` on a pair not joined by a plain step.
+
+        With ``p = v_(k-1)`` and ``q = v_k``: ``a = p - q``,
+        ``r = (p - T_lam p) - (q - T_lam q) = d_k - d_(k-1)`` and
+        ``T_lam p - T_lam q = a - r`` (section 2 of the theory notes).
+        """
+        previous, witness = self._previous_step, (self._previous_point, point)
+        a = self._previous_point - point
+        r = step - previous
+        a_norm, r_norm, moved = norm(a), norm(r), norm(a - r)
+        flags = []
+        if moved > a_norm * (1.0 + self.policy.increase_rtol) + allowance:
+            flags.append(
+                self._flag(
+                    "residual_increase",
+                    iteration,
+                    f"the iteration map expands the last pair of accepted points: "
+                    f"||T p - T q|| = {moved:.6g} > ||p - q|| = {a_norm:.6g}",
+                    moved / a_norm if a_norm > 0 else math.inf,
+                    witness,
+                )
+            )
+        if self.map_kind == "averaged":
+            inner = float(torch.vdot(a.reshape(-1), r.reshape(-1)))
+            theta, informative = averagedness_value(r_norm, inner, a_norm, allowance)
+            if informative and r_norm > 0 and theta > self.constant + 1e-6:
+                flags.append(
+                    self._flag(
+                        "assumption_broken",
+                        iteration,
+                        f"the last pair of accepted points gives averagedness {theta:.6g} > certified "
+                        f"{self.constant:.6g}",
+                        theta,
+                        witness,
+                    )
+                )
+        elif self.map_kind is not None:
+            factor = self.constant if self.map_kind == "contraction" else 1.0
+            if moved > factor * a_norm + allowance:
+                flags.append(
+                    self._flag(
+                        "assumption_broken",
+                        iteration,
+                        f"||T p - T q|| / ||p - q|| = {moved / a_norm:.6g} > certified "
+                        f"{self.map_kind} factor {factor:.6g}",
+                        moved / a_norm,
                         witness,
                     )
                 )

@@ -83,6 +83,11 @@ class Reconstruction:
     objectives : numpy.ndarray
         For descent schemes (the potential route), ``F(x_k) = f(x_k) + g(x_k)``
         for ``k = 0 ... iterations``; empty otherwise.
+    accelerated : int
+        Accelerated (Anderson) steps accepted by the safeguard (0 for plain runs).
+    safeguarded : int
+        Accelerated candidates the safeguard rejected; each cost one evaluation
+        of the iteration map beyond ``iterations``.
     """
 
     x: ArrayLike
@@ -103,6 +108,8 @@ class Reconstruction:
     back_offs: int = 0
     notes: tuple[str, ...] = field(default=())
     objectives: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    accelerated: int = 0
+    safeguarded: int = 0
 
     @property
     def guaranteed(self) -> bool:
