@@ -196,6 +196,23 @@ _CPUS = os.cpu_count() or 1
 _threads = _integer(1, _CPUS, expected=f"an integer from 1 to {_CPUS} (the CPUs of this machine)")
 
 
+def _workers(text: str) -> int | str:
+    if text == "auto":
+        return text
+    return _integer(1, expected="a positive integer or 'auto'")(text)
+
+
+def _add_worker_options(verb: argparse.ArgumentParser) -> None:
+    """``--workers`` / ``--scheduler``: where a verb's independent jobs run (default: serially)."""
+    where = verb.add_mutually_exclusive_group()
+    where.add_argument("--workers", type=_workers, default=None, metavar="N",
+                       help="run the jobs on a local dask.distributed cluster of N single-threaded "
+                       "worker processes ('auto': one per CPU); default: serially")
+    where.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                       help="run the jobs on an existing dask.distributed cluster, e.g. "
+                       "tcp://10.0.0.5:8786")
+
+
 def _aspects(text: str) -> tuple[str, ...]:
     from .bench import ASPECTS
 
@@ -306,6 +323,8 @@ def _benchmark(args: argparse.Namespace) -> int:
             seed=args.seed,
             threads=args.threads,
             progress=sys.stderr.isatty() if args.progress is None else args.progress,
+            workers=args.workers,
+            scheduler=args.scheduler,
         )
     except (ValueError, KeyError) as error:
         raise UsageError(str(error.args[0])) from None
@@ -510,6 +529,7 @@ def build_parser() -> argparse.ArgumentParser:
                        help="save truths, data, reconstructions and residual curves (.npz)")
     bench.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
                        help="progress bar on standard error (default: when it is a terminal)")
+    _add_worker_options(bench)
     bench.set_defaults(run=_benchmark)
 
     compare = verbs.add_parser(
