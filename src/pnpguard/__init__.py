@@ -22,6 +22,8 @@ from .operators import __all__ as _operators_all
 from .solvers import *  # noqa: F403
 from .solvers import __all__ as _solvers_all
 from .starts import fill_missing, interpolated_start
+from .strength import *  # noqa: F403
+from .strength import __all__ as _strength_all
 
 __version__ = package_version()
 
@@ -38,4 +40,5 @@ __all__ = [
     *_learned_all,
     *_operators_all,
     *_solvers_all,
+    *_strength_all,
 ]
