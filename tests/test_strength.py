@@ -195,3 +195,10 @@ def test_the_sweep_verb_writes_json_and_a_figure(tmp_path):
     document = json.loads(out.read_text())
     assert [p["verdict"] for p in document["points"]] == ["proved", "proved"]
     assert figure.stat().st_size > 0
+
+
+def test_sweep_margin_is_validated_like_admissible(fidelity16):
+    with pytest.raises(TypeError, match="`margin`"):
+        pg.sweep_check(_wavelet, fidelity16, [0.1], margin=False)
+    with pytest.raises(ValueError, match="`margin`"):
+        pg.sweep_check(_wavelet, fidelity16, [0.1], margin=1.0)

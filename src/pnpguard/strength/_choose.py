@@ -17,6 +17,7 @@ from ..check import check_denoiser
 from ..check._check import DEFAULT_BUDGET
 from ..fidelity import LeastSquares
 from ..guarantee import Refused
+from ..metrics import psnr
 from ..solvers import reconstruct
 from ..splitting import algorithm as algorithm_record
 from ._rules import DISCREPANCY_TAU, RULES, SureProbe, discrepancy
@@ -43,6 +44,9 @@ class StrengthRow:
         Wall time of the runs at this strength (two runs for SURE).
     message : str
         Why the run ended, the refusal's reasons, or the error.
+    psnr : float or None
+        PSNR against the ``reference`` given to :func:`choose_strength`
+        (evaluation only; never used by the rule), else None.
     """
 
     strength: float
@@ -52,13 +56,14 @@ class StrengthRow:
     iterations: int
     seconds: float
     message: str
+    psnr: float | None = None
 
     def as_dict(self) -> dict[str, Any]:
         """The row as plain JSON-ready values."""
         return {
             "strength": self.strength, "value": self.value, "verdict": self.verdict,
             "guarantee": self.guarantee, "iterations": self.iterations, "seconds": self.seconds,
-            "message": self.message,
+            "message": self.message, "psnr": self.psnr,
         }
 
 
@@ -119,6 +124,8 @@ class _Job:
     noise: float
     probe: SureProbe | None
     options: dict[str, Any]
+    reference: np.ndarray | None
+    data_range: float
 
 
 def _evaluate(job: _Job) -> tuple[StrengthRow, np.ndarray | None]:
@@ -150,8 +157,11 @@ def _evaluate(job: _Job) -> tuple[StrengthRow, np.ndarray | None]:
         iterations += perturbed.iterations
     verdict = result.report.verdict if result.report is not None else None
     status = result.guarantee.status if result.guarantee is not None else "none"
+    quality = None
+    if job.reference is not None:
+        quality = psnr(np.asarray(result.x, dtype=np.float64), job.reference, data_range=job.data_range)
     row = StrengthRow(job.strength, value if math.isfinite(value) else None, verdict, status, iterations,
-                      time.perf_counter() - begin, result.message)
+                      time.perf_counter() - begin, result.message, quality)
     return row, np.asarray(result.x, dtype=np.float64)
 
 
@@ -193,6 +203,8 @@ def choose_strength(
     workers: int | str | None = None,
     scheduler: Any = None,
     progress: bool = False,
+    reference: Any = None,
+    data_range: float = 1.0,
     **options: Any,
 ) -> StrengthChoice:
     """Choose a denoiser's strength without ground truth.
@@ -233,6 +245,11 @@ def choose_strength(
         Where the runs go (see :func:`pnpguard.bench.run_suite`); default serially.
     progress : bool
         One progress bar over the runs.
+    reference : array, optional
+        Ground truth for evaluation only: each row then carries its PSNR
+        (with ``data_range``); the rule never sees it.
+    data_range : float
+        Intensity range of the PSNR against ``reference``.
     **options
         Keywords of :func:`pnpguard.reconstruct` (``max_iter``, ``tol``, ``check_budget``...).
 
@@ -292,9 +309,13 @@ def choose_strength(
     noise = fidelity.sigma if noise is None else positive_number(noise, "noise")
     tau = positive_number(tau, "tau")
     probe = SureProbe.build(fidelity, noise, seed) if rule == "sure" else None
+    if reference is not None:
+        reference = np.asarray(reference, dtype=np.float64)
+    data_range = positive_number(data_range, "data_range")
 
     def run(grid: Sequence[float]) -> list[tuple[StrengthRow, np.ndarray | None]]:
-        jobs = [_Job(fidelity, factory, record.name, float(s), rule, noise, probe, options) for s in grid]
+        jobs = [_Job(fidelity, factory, record.name, float(s), rule, noise, probe, options, reference, data_range)
+                for s in grid]
         out = []
         for strength, done in zip(grid, run_jobs(_evaluate, jobs, workers=workers, scheduler=scheduler,
                                                   progress=progress, description="strengths")):

@@ -10,7 +10,7 @@ from pathlib import Path
 from typing import Any
 
 from .._jobs import run_jobs
-from .._validation import nonnegative_int, positive_number
+from .._validation import nonnegative_int, number_in, positive_number
 from ..check import check_denoiser
 from ..check._check import DEFAULT_BUDGET
 from ..fidelity import LeastSquares
@@ -240,7 +240,7 @@ def sweep_check(
         raise ValueError("`strengths` must hold at least one strength, got an empty sequence")
     names = tuple(algorithm_record(a).name for a in (algorithms if algorithms is not None else ALGORITHMS))
     budget = nonnegative_int(budget, "budget")
-    margin = positive_number(margin, "margin") if margin else 0.0
+    margin = number_in(margin, "margin", 0.0, 1.0, high_open=True)
     jobs = [_Job(factory, fidelity, s, names, budget, seed, margin) for s in grid]
     points = []
     for strength, done in zip(grid, run_jobs(_point, jobs, workers=workers, scheduler=scheduler,
