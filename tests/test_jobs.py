@@ -174,3 +174,31 @@ def test_worker_options_are_checked_while_parsing(arguments, message, capsys):
 
     assert main(["benchmark", "quick", *arguments]) == 2
     assert message in capsys.readouterr().err
+
+
+def test_strength_choice_and_sweep_on_two_workers_equal_the_serial_runs(client):
+    import pnpguard as pg
+
+    frame = pg.phantoms.cells(32, seed=0)
+    mask = pg.PixelMask(pg.random_pixel_mask(frame.shape, 0.5, seed=0))
+    data = mask.forward(frame) + 0.05 * np.random.default_rng(0).standard_normal(frame.shape)
+    fidelity = pg.LeastSquares(mask, data, sigma=0.05)
+
+    def wavelet(s):
+        return pg.WaveletShrinkage(sigma=s)
+
+    keywords = dict(rule="sure", points=4, refine=1, max_iter=20)
+    serial = pg.choose_strength(fidelity, wavelet, "fb", (1e-3, 0.1), **keywords)
+    spread = pg.choose_strength(fidelity, wavelet, "fb", (1e-3, 0.1), scheduler=client, **keywords)
+    assert [(r.strength, r.value, r.iterations, r.guarantee) for r in spread.rows] == [
+        (r.strength, r.value, r.iterations, r.guarantee) for r in serial.rows
+    ]
+    assert spread.strength == serial.strength
+    np.testing.assert_array_equal(spread.x, serial.x)
+
+    def relaxed(s):
+        return pg.relaxed(pg.WaveletShrinkage(sigma=0.05), s)
+
+    sweeps = [pg.sweep_check(relaxed, fidelity, [0.5, 1.0, 2.0], algorithms=["fb"], scheduler=where)
+              for where in (None, client)]
+    assert sweeps[0].as_dict() == sweeps[1].as_dict()

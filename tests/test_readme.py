@@ -30,6 +30,9 @@ SUBSTITUTIONS = {
     "steps=2000, save_to=": "steps=2, batch_size=2, patch_size=32, save_to=",
     # the whole quick suite is CI's job (.ci/run); one baseline method over its tasks here
     'bench.run_suite("quick")': 'bench.run_suite("quick", methods=["tikhonov"])',
+    # the strength choice and the sweep: fewer strengths, iterations and check calls
+    '(1e-4, 1e-1), rule="discrepancy")': '(1e-4, 1e-1), rule="discrepancy", points=3, refine=1, max_iter=20)',
+    "fidelity, [0.1, 0.3, 1.0])": "fidelity, [0.1, 1.0], budget=20)",
 }
 
 #: Names the README leaves to the reader.
