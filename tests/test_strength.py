@@ -202,3 +202,18 @@ def test_sweep_margin_is_validated_like_admissible(fidelity16):
         pg.sweep_check(_wavelet, fidelity16, [0.1], margin=False)
     with pytest.raises(ValueError, match="`margin`"):
         pg.sweep_check(_wavelet, fidelity16, [0.1], margin=1.0)
+
+
+@pytest.mark.parametrize("arguments, message", [
+    (["wavelet", "--range", "0.1", "0.01"], "--range: expected LOW < HIGH"),
+    (["wavelett"], "did you mean"),
+    (["wavelet", "--strengths", "0"], "--strengths: expected a positive number"),
+])
+def test_the_sweep_verb_refuses_bad_arguments(arguments, message, tmp_path, capsys):
+    from pnpguard.cli import main
+
+    image = tmp_path / "frame.npy"
+    np.save(image, pg.phantoms.cells(16, seed=0))
+    name, *options = arguments
+    assert main(["sweep", name, str(image), *options]) == 2
+    assert message in capsys.readouterr().err
