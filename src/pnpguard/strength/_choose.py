@@ -261,7 +261,10 @@ def choose_strength(
     -----
     The discrepancy principle takes the largest regularisation whose data
     residual does not exceed the noise energy ``tau^2 m noise^2`` [1]_; with
-    ``tau = 1`` it matches the expected residual at the true image. SURE
+    ``tau = 1`` it matches the expected residual at the true image. It presumes
+    that the residual grows with the strength (true of proximal denoisers whose
+    strength is their regularisation weight); when it does not, it picks an end
+    of the range and SURE is the rule to use. SURE
     estimates the mean squared error from the data alone [2]_; the divergence
     of the reconstruction map is estimated with one probe ``c``, from a second
     run on ``y + delta c`` (``delta = noise / 10``) warm-started at the first
