@@ -15,7 +15,7 @@ import skimage.io
 from pnpguard import phantoms
 from pnpguard.cli import main
 
-VERBS = ("benchmark", "check", "compare", "demo", "list", "recover", "report")
+VERBS = ("benchmark", "check", "compare", "demo", "list", "recover", "report", "sweep")
 
 
 def run(*args: str, cwd: Path | None = None) -> subprocess.CompletedProcess:

@@ -32,6 +32,9 @@ SUBSTITUTIONS = {
     'bench.run_suite("quick")': 'bench.run_suite("quick", methods=["tikhonov"])',
     # the guarantee is settled before the first iteration; five iterations show the run
     "pg.WaveletShrinkage(sigma=0.002), max_iter=100)": "pg.WaveletShrinkage(sigma=0.002), max_iter=5)",
+    # the strength choice and the sweep: fewer strengths, iterations and check calls
+    '(1e-4, 1e-1), rule="discrepancy")': '(1e-4, 1e-1), rule="discrepancy", points=3, refine=1, max_iter=20)',
+    "fidelity, [0.1, 0.3, 1.0])": "fidelity, [0.1, 1.0], budget=20)",
 }
 
 #: Names (and files) the README leaves to the reader.

@@ -37,6 +37,12 @@ POSITIVE_NUMBERS = {
     "shipped denoiser": ("strength", lambda x: bench.get_denoiser("wavelet").make(x, SHAPE)),
     "Ellipse": ("a", lambda x: ph.Ellipse(0.0, 0.0, x, 0.5)),
     "as_operator": ("norm", lambda x: pg.as_operator(np.eye(64), SHAPE, SHAPE, norm=x)),
+    "choose_strength noise": ("noise", lambda x: pg.choose_strength(
+        pg.LeastSquares(MASK, IMAGE), pg.WaveletShrinkage, "fb", (0.01, 0.1), noise=x)),
+    "choose_strength tau": ("tau", lambda x: pg.choose_strength(
+        pg.LeastSquares(MASK, IMAGE), pg.WaveletShrinkage, "fb", (0.01, 0.1), tau=x)),
+    "choose_strength data_range": ("data_range", lambda x: pg.choose_strength(
+        pg.LeastSquares(MASK, IMAGE), pg.WaveletShrinkage, "fb", (0.01, 0.1), data_range=x)),
 }
 
 # A positive integer, by name.

@@ -17,6 +17,8 @@ from .operators import __all__ as _operators_all
 from .solvers import *  # noqa: F403
 from .solvers import __all__ as _solvers_all
 from .starts import fill_missing, interpolated_start
+from .strength import *  # noqa: F403
+from .strength import __all__ as _strength_all
 
 
 __all__ = [
@@ -32,4 +34,5 @@ __all__ = [
     *_learned_all,
     *_operators_all,
     *_solvers_all,
+    *_strength_all,
 ]

@@ -40,6 +40,7 @@ VERBS = {
     "demo": "run the main demonstration",
     "check": "check a denoiser on an image and print the guarantees per algorithm",
     "benchmark": "run a benchmark suite and write a result file",
+    "sweep": "check a shipped denoiser over a range of strengths",
     "compare": "compare two result files; exit status 1 on a regression",
     "report": "write a markdown report with figures from a result file",
     "recover": "reconstruct from data files with a guarantee, write the result and a JSON record",
@@ -215,6 +216,23 @@ _THREADS_HELP = (
 )
 
 
+def _workers(text: str) -> int | str:
+    if text == "auto":
+        return text
+    return _integer(1, expected="a positive integer or 'auto'")(text)
+
+
+def _add_worker_options(verb: argparse.ArgumentParser) -> None:
+    """``--workers`` / ``--scheduler``: where a verb's independent jobs run (default: serially)."""
+    where = verb.add_mutually_exclusive_group()
+    where.add_argument("--workers", type=_workers, default=None, metavar="N",
+                       help="run the jobs on a local dask.distributed cluster of N single-threaded "
+                       "worker processes ('auto': one per CPU); default: serially")
+    where.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                       help="run the jobs on an existing dask.distributed cluster, e.g. "
+                       "tcp://10.0.0.5:8786")
+
+
 def _aspects(text: str) -> tuple[str, ...]:
     from .bench import ASPECTS
 
@@ -329,6 +347,8 @@ def _benchmark(args: argparse.Namespace) -> int:
             seed=args.seed,
             threads=args.threads,
             progress=sys.stderr.isatty() if args.progress is None else args.progress,
+            workers=args.workers,
+            scheduler=args.scheduler,
         )
     except (ValueError, KeyError) as error:
         raise UsageError(str(error.args[0])) from None
@@ -351,6 +371,74 @@ def _benchmark(args: argparse.Namespace) -> int:
     if document.get("caution"):
         print(CAUTION)
     return 0
+
+
+def _sweep(args: argparse.Namespace) -> int:
+    from .bench import denoiser_names, get_denoiser, get_task
+    from .strength import sweep_check
+
+    if args.denoiser not in denoiser_names():
+        try:
+            get_denoiser(args.denoiser)
+        except ValueError as error:
+            raise UsageError(str(error)) from None
+    try:
+        task = get_task(args.task)
+    except ValueError as error:
+        raise UsageError(str(error)) from None
+    image = _load_image(args.image)
+    try:
+        problem = task.problem(image.shape, image=image)
+    except ValueError as error:
+        raise UsageError(f"task {task.name!r} cannot use this image: {error}") from None
+    entry = get_denoiser(args.denoiser)
+    if args.strengths:
+        strengths = args.strengths
+    else:
+        low, high = args.range
+        if not low < high:
+            raise UsageError(f"argument --range: expected LOW < HIGH, got {low:g} {high:g}")
+        strengths = list(np.geomspace(low, high, args.points))
+    sweep = sweep_check(
+        _RegistryFactory(entry.name, problem.shape), problem.fidelity, strengths,
+        algorithms=args.algorithms, budget=args.budget, seed=args.seed, margin=args.margin,
+        workers=args.workers, scheduler=args.scheduler,
+        progress=sys.stderr.isatty() if args.progress is None else args.progress,
+    )
+    names = list(sweep.algorithms)
+    rows = []
+    for point in sweep.points:
+        windows = [
+            "refused" if point.windows[n] is None else f"({point.windows[n][0]:.3g}, {point.windows[n][1]:.3g})"
+            for n in names
+        ]
+        constants = [f"{v:.4g}" if v is not None else "-" for v in (point.theta, point.lipschitz,
+                                                                      point.residual_lipschitz)]
+        rows.append([f"{point.strength:.4g}", point.verdict or "failed", *constants, *windows])
+    header = ["strength", "verdict", "theta", "lipschitz", "residual", *names]
+    print(f"denoiser {entry.name} ({entry.strength}) on task {task.name}, image {args.image}")
+    print(_table(header, rows))
+    output = Path(args.output or f"sweep-{entry.name}.json")
+    try:
+        sweep.save(output)
+        if args.figure:
+            sweep.plot(title=f"{entry.name} on {task.name}").savefig(args.figure, dpi=150)
+    except OSError as error:
+        raise UsageError(f"cannot write the sweep: {error.strerror or error}") from None
+    print(f"wrote {output}" + (f" and {args.figure}" if args.figure else ""))
+    return 0
+
+
+class _RegistryFactory:
+    """``strength -> denoiser`` for a shipped denoiser (picklable, for workers)."""
+
+    def __init__(self, name: str, shape: tuple[int, int]):
+        self.name, self.shape = name, shape
+
+    def __call__(self, strength: float) -> Any:
+        from .bench import get_denoiser
+
+        return get_denoiser(self.name).make(strength, self.shape)
 
 
 def _compare(args: argparse.Namespace) -> int:
@@ -665,7 +753,39 @@ def build_parser() -> argparse.ArgumentParser:
                        help="save truths, data, reconstructions and residual curves (.npz)")
     bench.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
                        help="progress bar on standard error (default: when it is a terminal)")
+    _add_worker_options(bench)
     bench.set_defaults(run=_benchmark)
+
+    sweep = verbs.add_parser(
+        "sweep",
+        help=VERBS["sweep"],
+        description="Check a shipped denoiser at several strengths on a sample image and a task's "
+        "forward model: its constants (theta, Lipschitz, residual Lipschitz), the verdict and each "
+        "algorithm's admissible step window or refusal. Writes JSON and, with --figure, a PNG.",
+    )
+    sweep.add_argument("denoiser", help="a shipped denoiser name (see 'pnpguard list denoisers')")
+    sweep.add_argument("image", help="sample image: .npy or any format scikit-image reads")
+    sweep.add_argument("--task", default="deblur-gaussian-1pct",
+                       help="task whose forward model and noise level are used (default: %(default)s)")
+    strengths = sweep.add_mutually_exclusive_group()
+    strengths.add_argument("--strengths", nargs="+", type=_positive_float, default=None, metavar="S",
+                           help="the strengths to check")
+    strengths.add_argument("--range", nargs=2, type=_positive_float, default=(1e-3, 1e-1),
+                           metavar=("LOW", "HIGH"), help="geometric grid from LOW to HIGH (default: 1e-3 0.1)")
+    sweep.add_argument("--points", type=_integer(2), default=7, help="points of the --range grid (default: 7)")
+    sweep.add_argument("--algorithms", nargs="+", type=_algorithm, default=list(ALGORITHMS), metavar="NAME",
+                       help="algorithms whose windows are computed (default: all)")
+    sweep.add_argument("--budget", type=_integer(MIN_BUDGET), default=200,
+                       help=f"denoiser calls per black-box check, at least {MIN_BUDGET} (default: 200)")
+    sweep.add_argument("--seed", type=_seed, default=0, help="seed of the checks' search (default: 0)")
+    sweep.add_argument("--margin", type=_fraction, default=0.05,
+                       help="safety margin on estimated constants (default: 0.05)")
+    sweep.add_argument("--output", "-o", default=None, help="JSON file (default: sweep-<denoiser>.json)")
+    sweep.add_argument("--figure", default=None, help="also write the figure (PNG) here")
+    sweep.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
+                       help="progress bar on standard error (default: when it is a terminal)")
+    _add_worker_options(sweep)
+    sweep.set_defaults(run=_sweep)
 
     compare = verbs.add_parser(
         "compare",

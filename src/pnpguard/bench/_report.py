@@ -84,8 +84,8 @@ def family_gaps(document: dict[str, Any]) -> list[FamilyGap]:
 def _cell(record: dict[str, Any] | None, best: float | None) -> str:
     if record is None:
         return ""
-    if record["status"] == "refused":
-        return "refused"
+    if record["status"] in ("refused", "error"):
+        return record["status"]
     text = f"{record['psnr']:.2f} / {record['ssim']:.3f}"
     return f"**{text}**" if best is not None and record["psnr"] == best else text
 
@@ -93,6 +93,8 @@ def _cell(record: dict[str, Any] | None, best: float | None) -> str:
 def _guard_cell(record: dict[str, Any] | None) -> str:
     if record is None:
         return ""
+    if record["status"] == "error":
+        return record["message"]
     check = record["check"] or {}
     verdict = check.get("verdict", "")
     theta = check.get("theta")

@@ -5,7 +5,8 @@ Layout (``format_version`` 1)::
     {"format": "pnpguard-benchmark-results", "format_version": 1,
      "created": ISO 8601 time, "seconds": total wall time,
      "suite": {"name", "tasks", "shape", "max_iter", "tol", "check_budget"},
-     "settings": {"seed", "check_budget", "threads", "data_range", "dtype", "tuned"},
+     "settings": {"seed", "check_budget", "threads", "data_range", "dtype", "tuned",
+                  "workers" (where the jobs ran: "serial" or the dask.distributed cluster)},
      "environment": {"pnpguard", "git_commit", "git_dirty", "python", "torch", "numpy",
                      "scipy", "scikit-image", "platform", "machine", "processor", "cpu_count"},
      "tasks": [{"name", "family", "model", "noise", "phantom", "seed", "tuning_phantom",
@@ -17,7 +18,7 @@ Layout (``format_version`` 1)::
 Each record::
 
     {"task", "method", "kind" ("pnp" | "baseline"), "algorithm", "denoiser",
-     "status" ("ok" | "refused"), "psnr", "ssim", "iterations", "converged",
+     "status" ("ok" | "refused" | "error"), "psnr", "ssim", "iterations", "converged",
      "final_residual", "seconds", "check_seconds", "message", "parameters",
      "flags": [{"kind", "action", "count", "first_iteration", "message"}],
      "check": {"verdict", "theta", "lipschitz", "residual_lipschitz", "refuted",
@@ -26,7 +27,9 @@ Each record::
                    "theorem"} or null,
      "refusal": {"reasons": [...], "suggestions": [...]} or null}
 
-Numbers that are not finite are stored as null. The companion ``.npz`` holds
+Status ``"error"``: the method's job raised or its workers kept dying; its
+``message`` says why and its numbers are null. Numbers that are not finite are
+stored as null. The companion ``.npz`` holds
 ``<task>/truth``, ``<task>/data``, ``<task>/<method>`` (reconstructions) and
 ``<task>/<method>/residuals`` (curves).
 """

@@ -2,16 +2,16 @@
 
 from __future__ import annotations
 
-import sys
 import time
 from collections.abc import Iterable
+from dataclasses import dataclass
 from datetime import datetime, timezone
 from typing import Any
 
 import numpy as np
-import torch
 
 from .._caution import CAUTION
+from .._jobs import run_jobs
 from .._validation import positive_int, unknown_message
 from ..metrics import psnr, ssim
 from ._methods import (
@@ -33,7 +33,7 @@ from ._results import (
     flag_summary,
     guarantee_summary,
 )
-from ._tasks import DATA_RANGE, Suite, get_suite
+from ._tasks import DATA_RANGE, Suite, Task, get_suite
 from ._tuned import TunedParameters, load_tuned
 from ._tuning import tune_task
 
@@ -86,6 +86,85 @@ def _record(task: str, method: Method, outcome: Outcome, truth: np.ndarray) -> d
     }
 
 
+@dataclass(frozen=True)
+class SuiteJob:
+    """One independent job of a suite: a baseline, or one shipped denoiser with its algorithms.
+
+    The algorithms of one denoiser share a job because they share its check
+    (one :class:`DenoiserCache`), exactly as a serial run does.
+
+    Attributes
+    ----------
+    task : Task
+    suite : Suite
+    methods : tuple of Method
+        One baseline, or the PnP methods of one denoiser (in suite order).
+    tuned : TunedParameters
+    budget : int
+        Denoiser calls per black-box check.
+    seed : int
+        Seed of the check's pair search.
+    """
+
+    task: Task
+    suite: Suite
+    methods: tuple[Method, ...]
+    tuned: TunedParameters
+    budget: int
+    seed: int
+
+
+def _jobs(suite: Suite, selected: dict[str, tuple[Method, ...]], tuned: TunedParameters,
+          budget: int, seed: int) -> list[SuiteJob]:
+    jobs = []
+    for task in suite.tasks:
+        groups: dict[str, list[Method]] = {}
+        for method in selected[task.name]:
+            groups.setdefault(method.name if method.kind == "baseline" else f"pnp:{method.denoiser}",
+                              []).append(method)
+        jobs.extend(SuiteJob(task, suite, tuple(g), tuned, budget, seed) for g in groups.values())
+    return jobs
+
+
+def run_job(job: SuiteJob) -> dict[str, Any]:
+    """Run one job of a suite: its records, arrays, the task's noise level and its wall time."""
+    begin = time.perf_counter()
+    problem = job.task.problem(job.task.fixed_shape or job.suite.shape)
+    denoisers = DenoiserCache(problem, budget=job.budget, seed=job.seed)
+    records, arrays = [], {}
+    for method in job.methods:
+        if method.kind == "baseline":
+            outcome = run_baseline(method.name, problem, job.tuned.baseline(job.task.name, method.name))
+        else:
+            outcome = run_pnp(
+                method,
+                problem,
+                job.tuned.strength(job.task.name, method.denoiser),
+                denoisers=denoisers,
+                max_iter=job.suite.max_iter,
+                tol=job.suite.tol,
+            )
+        records.append(_record(job.task.name, method, outcome, problem.truth))
+        if outcome.x is not None:
+            arrays[f"{job.task.name}/{method.name}"] = outcome.x
+            arrays[f"{job.task.name}/{method.name}/residuals"] = outcome.relative_residuals
+    arrays[f"{job.task.name}/truth"] = problem.truth
+    arrays[f"{job.task.name}/data"] = problem.y
+    return {"records": records, "arrays": arrays, "sigma": problem.sigma,
+            "seconds": time.perf_counter() - begin}
+
+
+def _failed_record(task: str, method: Method, error: str) -> dict[str, Any]:
+    """The record of a method whose job raised or whose worker died: status ``"error"``."""
+    return {
+        "task": task, "method": method.name, "kind": method.kind, "algorithm": method.algorithm,
+        "denoiser": method.denoiser, "status": "error", "psnr": None, "ssim": None,
+        "iterations": 0, "converged": False, "final_residual": None, "seconds": None,
+        "check_seconds": None, "message": f"failed: {error}", "parameters": {}, "flags": [],
+        "check": None, "guarantee": None, "refusal": None,
+    }
+
+
 def run_suite(
     suite: Suite | str,
     *,
@@ -95,6 +174,8 @@ def run_suite(
     seed: int = 0,
     threads: int = 1,
     progress: bool = False,
+    workers: int | str | None = None,
+    scheduler: str | Any | None = None,
 ) -> BenchmarkRun:
     """Run every task of a suite with every applicable method.
 
@@ -121,7 +202,14 @@ def run_suite(
         thread (the default) makes floating-point reductions run in one fixed
         order, so reruns on one machine give identical numbers.
     progress : bool, optional
-        Show a progress bar on standard error.
+        Show one progress bar on standard error, advanced as jobs finish.
+    workers : int or "auto", optional
+        Run the jobs on a local dask.distributed cluster of this many worker
+        processes (``"auto"``: one per CPU), each with ``threads`` torch
+        threads. Default: serially in this process.
+    scheduler : str or distributed.Client, optional
+        Address of an existing dask.distributed scheduler (or a connected
+        client) to run the jobs on; excludes ``workers``.
 
     Returns
     -------
@@ -138,6 +226,13 @@ def run_suite(
     (:func:`pnpguard.check_denoiser`; free for denoisers with verified
     structure); the three algorithms reuse that report, and take the step and
     relaxation the guarantee recommends.
+
+    The suite is split into independent jobs: each baseline on each task, and
+    each shipped denoiser on each task with all its algorithms (they share its
+    check). Results, in suite order, are the same serially and on any number
+    of workers (quality, verdicts and iterations; not timings). A job that
+    raises, or whose workers keep dying, gives records with status
+    ``"error"`` and the message; the other jobs go on.
     """
     suite = get_suite(suite) if isinstance(suite, str) else suite
     tuned = load_tuned() if tuned is None else tuned
@@ -145,61 +240,34 @@ def run_suite(
     threads = positive_int(threads, "threads")
     selected = _select(suite, methods)
     untuned = [task for task in suite.tasks if task.truth is not None and task.name not in tuned.data["tasks"]]
-    total = sum(len(chosen) for chosen in selected.values())
-    bar = None
-    if progress:
-        from tqdm import tqdm
-
-        bar = tqdm(total=total, desc=f"suite {suite.name}", unit="run", file=sys.stderr)
-    previous_threads = torch.get_num_threads()
-    torch.set_num_threads(threads)
+    if untuned:
+        how = (f"tuned in this run on the user's tuning image (max_iter {suite.max_iter}, tol {suite.tol:g}, "
+               f"check budget {budget}; the grids of pnpguard.bench.tune_task)")
+        tuned = tuned.including(
+            {task.name: tune_task(task, shape=task.fixed_shape or suite.shape, max_iter=suite.max_iter,
+                                  tol=suite.tol, check_budget=budget, methods=[m.name for m in selected[task.name]])
+             for task in untuned},
+            how,
+        )
+    jobs = _jobs(suite, selected, tuned, budget, seed)
     begin = time.perf_counter()
-    tasks, records, arrays = [], [], {}
-    try:
-        if untuned:
-            how = (f"tuned in this run on the user's tuning image (max_iter {suite.max_iter}, tol {suite.tol:g}, "
-                   f"check budget {budget}; the grids of pnpguard.bench.tune_task)")
-            tuned = tuned.including(
-                {task.name: tune_task(task, shape=suite.shape, max_iter=suite.max_iter, tol=suite.tol,
-                                      check_budget=budget, methods=[m.name for m in selected[task.name]])
-                 for task in untuned},
-                how,
-            )
-        for task in suite.tasks:
-            task_begin = time.perf_counter()
-            shape = task.fixed_shape or suite.shape
-            problem = task.problem(shape)
-            arrays[f"{task.name}/truth"] = problem.truth
-            arrays[f"{task.name}/data"] = problem.y
-            denoisers = DenoiserCache(problem, budget=budget, seed=seed)
-            for method in selected[task.name]:
-                if bar is not None:
-                    bar.set_postfix_str(f"{task.name} {method.name}")
-                if method.kind == "baseline":
-                    outcome = run_baseline(method.name, problem, tuned.baseline(task.name, method.name))
-                else:
-                    outcome = run_pnp(
-                        method,
-                        problem,
-                        tuned.strength(task.name, method.denoiser),
-                        denoisers=denoisers,
-                        max_iter=suite.max_iter,
-                        tol=suite.tol,
-                    )
-                records.append(_record(task.name, method, outcome, problem.truth))
-                if outcome.x is not None:
-                    arrays[f"{task.name}/{method.name}"] = outcome.x
-                    arrays[f"{task.name}/{method.name}/residuals"] = outcome.relative_residuals
-                if bar is not None:
-                    bar.update(1)
-            tasks.append(
-                {**task.describe(), "shape": list(shape), "sigma": problem.sigma,
-                 "seconds": time.perf_counter() - task_begin}
-            )
-    finally:
-        torch.set_num_threads(previous_threads)
-        if bar is not None:
-            bar.close()
+    done = run_jobs(run_job, jobs, workers=workers, scheduler=scheduler, threads=threads,
+                    progress=progress, description=f"suite {suite.name}")
+    records, arrays = [], {}
+    task_info: dict[str, dict[str, Any]] = {
+        task.name: {**task.describe(), "shape": list(task.fixed_shape or suite.shape), "sigma": None, "seconds": 0.0}
+        for task in suite.tasks
+    }
+    for job, result in zip(jobs, done):
+        info = task_info[job.task.name]
+        if not result.ok:
+            records.extend(_failed_record(job.task.name, method, result.error) for method in job.methods)
+            continue
+        records.extend(result.value["records"])
+        arrays.update(result.value["arrays"])
+        info["sigma"] = result.value["sigma"]
+        info["seconds"] += result.value["seconds"]
+    tasks = list(task_info.values())
     document = {
         "format": FORMAT,
         "format_version": FORMAT_VERSION,
@@ -213,6 +281,7 @@ def run_suite(
             "data_range": DATA_RANGE,
             "dtype": "float64",
             "tuned": tuned.provenance(),
+            "workers": _workers_text(workers, scheduler),
         },
         "environment": environment(threads),
         "tasks": tasks,
@@ -221,3 +290,12 @@ def run_suite(
         "caution": CAUTION if any(t.family == "tomography" for t in suite.tasks) else None,
     }
     return BenchmarkRun(document, arrays)
+
+
+def _workers_text(workers: int | str | None, scheduler: Any) -> str:
+    """Where the jobs ran, for the result file."""
+    if scheduler is not None:
+        return f"dask.distributed scheduler {getattr(scheduler, 'scheduler', scheduler)!s}"
+    if workers is not None:
+        return f"local dask.distributed cluster, workers={workers}"
+    return "serial"
