@@ -1,0 +1,260 @@
+"""Matrix-free pixel-footprint projection: the system matrix's entries computed on the fly.
+
+The kernel behind the matrix-free path of :class:`~pnpguard.ParallelProjection`.
+For every (angle, pixel) pair the three detector weights of the pixel's
+footprint are recomputed from the geometry in the input's precision, block by
+block over angles and image lines, so memory stays at a few fixed-size work
+buffers whatever the scan size. The forward map scatters pixel values into
+bins, the adjoint gathers bin values back with the same computed weights, so
+the two are exact transposes of one matrix (up to the order of summation).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import torch
+
+from ._cache import TransferCache
+
+#: About this many (angle, pixel) pairs are processed together: a block's
+#: work buffers (about ten of this length) stay in the processor's cache.
+BLOCK_PAIRS = 1 << 17
+
+#: Below this the narrower of ``|cos|``, ``|sin|`` is treated as 0 (the weight
+#: it would carry is under ``1e-30``), so ``1 / narrow`` never overflows.
+_NARROW_FLOOR = 1e-30
+
+
+class _Group:
+    """Angles sharing a loop order, with their geometry tables (float64 masters).
+
+    ``outer``/``inner`` name the image axis of the block's rows and of its
+    contiguous inner loop: the inner axis is the one along which the detector
+    position changes fastest (so consecutive pixels seldom share a bin and the
+    scatter does not stall on repeated indices).
+    """
+
+    def __init__(
+        self,
+        first: int,
+        outer_fraction: np.ndarray,
+        outer_whole: np.ndarray,
+        inner_fraction: np.ndarray,
+        inner_whole: np.ndarray,
+        constants: np.ndarray,
+        transposed: bool,
+    ):
+        self.first = first
+        self.count = outer_fraction.shape[0]
+        self.transposed = transposed
+        self.tables = [
+            TransferCache(torch.from_numpy(np.ascontiguousarray(a)))
+            for a in (outer_fraction, outer_whole, inner_fraction, inner_whole)
+        ]
+        self.constants = TransferCache(torch.from_numpy(np.ascontiguousarray(constants)))
+
+
+class FootprintKernel:
+    """Forward and adjoint of the pixel-footprint projector without storing it.
+
+    Parameters
+    ----------
+    shape : tuple of int
+        ``(H, W)`` of the images.
+    angles : numpy.ndarray
+        Angles in degrees (validated by the caller).
+    n_detectors : int
+        Number of detector bins.
+
+    Notes
+    -----
+    Geometry and weights are those of :class:`~pnpguard.ParallelProjection`:
+    the pixel centred at detector position ``s`` (in bins) touches the bins
+    ``n - 1, n, n + 1`` with ``n = round(s)`` and ``f = s - n`` in
+    ``[-1/2, 1/2]``, with weights ``F(-1/2 - f)``, ``1 - F(-1/2 - f) -
+    F(-1/2 + f)`` and ``F(-1/2 + f)``, where ``F`` is the distribution
+    function of the pixel's trapezoidal profile at ``t <= 0``,
+
+    .. math::
+
+        F(t) = \\frac{n}{2 w}\\,\\mathrm{clamp}\\Big(\\frac{t + o}{n}, 0, 1\\Big)^2
+             + \\max\\Big(\\frac{t + i}{w}, 0\\Big),
+
+    ``w = max(|cos|, |sin|)``, ``n = min(|cos|, |sin|)``, ``o = (w + n)/2``,
+    ``i = (w - n)/2`` (the quadratic ramp up to ``-i``, then the linear part).
+    The position is split as ``s = u_j + v_i`` (column and row terms), each
+    term stored as its nearest integer plus a fraction in ``[-1/2, 1/2]``, so
+    ``f`` is computed from small numbers and keeps the input precision's
+    relative accuracy at any detector size. All weights are >= 0: the clamps
+    keep the outer two nonnegative and they sum to at most ``1/2`` (``F`` is
+    convex on ``t <= 0``), leaving the middle one >= ``1/2`` up to rounding.
+    """
+
+    def __init__(self, shape: tuple[int, int], angles: np.ndarray, n_detectors: int):
+        self.shape = shape
+        self.n_angles = angles.size
+        self.n_detectors = n_detectors
+        height, width = shape
+        theta = np.deg2rad(angles)
+        cos, sin = np.cos(theta), np.sin(theta)
+        wide = np.maximum(np.abs(cos), np.abs(sin))
+        narrow = np.minimum(np.abs(cos), np.abs(sin))
+        narrow = np.where(narrow < _NARROW_FLOOR, 0.0, narrow)
+        # Detector positions in bins: s = u[angle, column] + v[angle, row].
+        u = (np.arange(width) - 0.5 * (width - 1))[None, :] * cos[:, None] + 0.5 * (n_detectors - 1)
+        v = (0.5 * (height - 1) - np.arange(height))[None, :] * sin[:, None]
+        u_whole, v_whole = np.rint(u), np.rint(v)
+        lowest = int((u_whole.min(axis=1) + v_whole.min(axis=1)).min())
+        highest = int((u_whole.max(axis=1) + v_whole.max(axis=1)).max())
+        # Work sinogram rows: bins padded so that every reached bin (nearest +-1,
+        # and one more for the shifted views) has a slot; cropped at the end.
+        self.pad = max(0, 2 - lowest)
+        self.stride = self.pad + max(n_detectors, highest + 3)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            inverse_narrow = np.where(narrow > 0, 1.0 / np.where(narrow > 0, narrow, 1.0), 0.0)
+        constants = np.stack(
+            [
+                0.5 * (wide + narrow - 1.0) * inverse_narrow,  # (o - 1/2) / n
+                inverse_narrow,  # 1 / n
+                0.5 * (wide - narrow - 1.0) / wide,  # (i - 1/2) / w
+                1.0 / wide,  # 1 / w
+                narrow / (2.0 * wide),  # n / (2 w)
+            ],
+            axis=1,
+        )[:, :, None, None]
+        # Loop order per angle: inner axis = columns when |cos| >= |sin|.
+        by_columns = np.abs(cos) >= np.abs(sin)
+        self.order = np.concatenate([np.flatnonzero(by_columns), np.flatnonzero(~by_columns)])
+        self.inverse_order = torch.from_numpy(np.argsort(self.order))
+        self.order_tensor = torch.from_numpy(self.order)
+        self.groups = []
+        first = 0
+        for columns in (True, False):
+            chosen = np.flatnonzero(by_columns == columns)
+            if chosen.size == 0:
+                continue
+            row_terms = (v[chosen] - v_whole[chosen], v_whole[chosen])
+            column_terms = (u[chosen] - u_whole[chosen], u_whole[chosen])
+            outer, inner = (row_terms, column_terms) if columns else (column_terms, row_terms)
+            self.groups.append(
+                _Group(first, outer[0], outer[1], inner[0], inner[1], constants[chosen], not columns)
+            )
+            first += chosen.size
+
+    # ------------------------------------------------------------------ blocks
+    def _blocks(self, group: _Group):
+        """``(angle slice, line slice)`` pairs covering the group, about BLOCK_PAIRS each."""
+        lines, length = (self.shape[1], self.shape[0]) if group.transposed else self.shape
+        if lines * length <= BLOCK_PAIRS:
+            angle_step, line_step = max(1, BLOCK_PAIRS // (lines * length)), lines
+        else:
+            angle_step, line_step = 1, max(1, BLOCK_PAIRS // length)
+        for a in range(0, group.count, angle_step):
+            for start in range(0, lines, line_step):
+                yield slice(a, min(group.count, a + angle_step)), slice(start, min(lines, start + line_step))
+
+    def _weights(
+        self, group: _Group, angles: slice, lines: slice, like: torch.Tensor, work: list[torch.Tensor]
+    ) -> tuple[torch.Tensor, torch.Tensor, torch.Tensor, torch.Tensor]:
+        """Slot index (int64, flat) and the three weights of a block, in ``like``'s dtype."""
+        outer_fraction, outer_whole, inner_fraction, inner_whole = (
+            t.like_real(like) for t in group.tables
+        )
+        rise, slope, level, gain, square = group.constants.like_real(like)[angles].unbind(1)
+        shape = (angles.stop - angles.start, lines.stop - lines.start, inner_fraction.shape[1])
+        size = shape[0] * shape[1] * shape[2]
+        frac, near, ramp, low, high, scaled, index32, index = (w[:size].view(shape) for w in work)
+        torch.add(
+            outer_fraction[angles, lines].unsqueeze(2), inner_fraction[angles].unsqueeze(1), out=frac
+        )
+        torch.round(frac, out=near)
+        frac.sub_(near)
+        # Slot of the lowest bin: the block's own sinogram rows start at slot 0,
+        # each row holds `stride` slots of which the first `pad` are padding.
+        rows = torch.arange(shape[0], dtype=like.dtype, device=like.device)
+        inner_whole = inner_whole[angles] + (rows * self.stride + (self.pad - 1)).unsqueeze(1)
+        near.add_(outer_whole[angles, lines].unsqueeze(2)).add_(inner_whole.unsqueeze(1))
+        index32.copy_(near)
+        index.copy_(index32)
+        # Quadratic parts: clamp((o - 1/2 -+ f) / n, 0, 1)^2 * n / (2 w).
+        torch.mul(frac, slope, out=scaled)
+        torch.sub(rise, scaled, out=ramp).clamp_(0.0, 1.0)
+        torch.mul(ramp, square, out=near)
+        torch.sub(level, torch.mul(frac, gain, out=low), out=low).clamp_(min=0.0).addcmul_(ramp, near)
+        torch.add(rise, scaled, out=ramp).clamp_(0.0, 1.0)
+        torch.mul(ramp, square, out=near)
+        torch.mul(frac, gain, out=high).add_(level).clamp_(min=0.0).addcmul_(ramp, near)
+        middle = torch.add(low, high, out=near).neg_().add_(1.0)
+        return index.view(-1), low, middle, high
+
+    def _work(self, like: torch.Tensor) -> list[torch.Tensor]:
+        size = min(
+            BLOCK_PAIRS + max(self.shape), self.n_angles * self.shape[0] * self.shape[1]
+        )
+        floats = [torch.empty(size, dtype=like.dtype, device=like.device) for _ in range(6)]
+        return floats + [
+            torch.empty(size, dtype=torch.int32, device=like.device),
+            torch.empty(size, dtype=torch.int64, device=like.device),
+        ]
+
+    # ------------------------------------------------------------- transforms
+    def forward(self, x: torch.Tensor) -> torch.Tensor:
+        """Sinograms ``(..., n_angles, n_detectors)`` of images ``(..., H, W)``."""
+        lead = x.shape[:-2]
+        images = x.reshape(-1, *self.shape)
+        transposed = images.transpose(1, 2).contiguous() if any(g.transposed for g in self.groups) else None
+        count = images.shape[0]
+        slots = torch.zeros(count, self.n_angles * self.stride, dtype=x.dtype, device=x.device)
+        work = self._work(x)
+        product = work[2]
+        for group in self.groups:
+            source = transposed if group.transposed else images
+            for angles, lines in self._blocks(group):
+                index, low, middle, high = self._weights(group, angles, lines, x, work)
+                base = (group.first + angles.start) * self.stride
+                span = (angles.stop - angles.start) * self.stride - 2
+                values = product[: index.numel()].view(low.shape)
+                for n in range(count):
+                    line_values = source[n, lines]
+                    for shift, weight in ((0, low), (1, middle), (2, high)):
+                        torch.mul(weight, line_values, out=values)
+                        slots[n].narrow(0, base + shift, span).scatter_add_(0, index, values.view(-1))
+        sinograms = slots.view(count, self.n_angles, self.stride)[
+            :, self.inverse_order.to(x.device), self.pad : self.pad + self.n_detectors
+        ]
+        return sinograms.reshape(*lead, self.n_angles, self.n_detectors)
+
+    def adjoint(self, y: torch.Tensor) -> torch.Tensor:
+        """Backprojections ``(..., H, W)`` of sinograms ``(..., n_angles, n_detectors)``."""
+        lead = y.shape[:-2]
+        sinograms = y.reshape(-1, self.n_angles, self.n_detectors)
+        count = sinograms.shape[0]
+        slots = y.new_zeros(count, self.n_angles, self.stride)
+        slots[:, :, self.pad : self.pad + self.n_detectors] = sinograms[:, self.order_tensor.to(y.device)]
+        slots = slots.view(count, -1)
+        height, width = self.shape
+        images = y.new_zeros(count, height, width)
+        transposed = y.new_zeros(count, width, height) if any(g.transposed for g in self.groups) else None
+        work = self._work(y)
+        gathered, accumulated = work[2], work[5]
+        for group in self.groups:
+            target = transposed if group.transposed else images
+            for angles, lines in self._blocks(group):
+                index, low, middle, high = self._weights(group, angles, lines, y, work)
+                base = (group.first + angles.start) * self.stride
+                span = (angles.stop - angles.start) * self.stride - 2
+                values = gathered[: index.numel()]
+                total = accumulated[: index.numel()].view(low.shape)
+                term = values.view(low.shape)
+                for n in range(count):
+                    row = slots[n]
+                    torch.index_select(row.narrow(0, base, span), 0, index, out=values)
+                    torch.mul(term, low, out=total)
+                    for shift, weight in ((1, middle), (2, high)):
+                        torch.index_select(row.narrow(0, base + shift, span), 0, index, out=values)
+                        total.addcmul_(term, weight)
+                    target[n, lines] += total.sum(0)
+        if transposed is not None:
+            images += transposed.transpose(1, 2)
+        return images.reshape(*lead, height, width)
+
