@@ -107,9 +107,10 @@ class FootprintKernel:
         lowest = int((u_whole.min(axis=1) + v_whole.min(axis=1)).min())
         highest = int((u_whole.max(axis=1) + v_whole.max(axis=1)).max())
         # Work sinogram rows: bins padded so that every reached bin (nearest +-1,
-        # and one more for the shifted views) has a slot; cropped at the end.
-        self.pad = max(0, 2 - lowest)
-        self.stride = self.pad + max(n_detectors, highest + 3)
+        # one more for the shifted views and one for a rounding tie of a
+        # mirrored pixel) has a slot; cropped at the end.
+        self.pad = max(0, 3 - lowest)
+        self.stride = self.pad + max(n_detectors, highest + 4)
         with np.errstate(divide="ignore", invalid="ignore"):
             inverse_narrow = np.where(narrow > 0, 1.0 / np.where(narrow > 0, narrow, 1.0), 0.0)
         constants = np.stack(
@@ -143,34 +144,44 @@ class FootprintKernel:
 
     # ------------------------------------------------------------------ blocks
     def _blocks(self, group: _Group):
-        """``(angle slice, line slice)`` pairs covering the group, about BLOCK_PAIRS each."""
+        """Blocks ``(angles, lines, mirrored)`` of about BLOCK_PAIRS pairs covering the group.
+
+        Only the first half of the lines is visited: line ``l`` also stands
+        for its point reflection through the image centre, line ``L - 1 - l``
+        read backwards, for the first ``mirrored`` lines of the block.
+        """
         lines, length = (self.shape[1], self.shape[0]) if group.transposed else self.shape
-        if lines * length <= BLOCK_PAIRS:
-            angle_step, line_step = max(1, BLOCK_PAIRS // (lines * length)), lines
+        half = (lines + 1) // 2
+        if half * length <= BLOCK_PAIRS:
+            angle_step, line_step = max(1, BLOCK_PAIRS // (half * length)), half
         else:
             angle_step, line_step = 1, max(1, BLOCK_PAIRS // length)
         for a in range(0, group.count, angle_step):
-            for start in range(0, lines, line_step):
-                yield slice(a, min(group.count, a + angle_step)), slice(start, min(lines, start + line_step))
+            for start in range(0, half, line_step):
+                stop = min(half, start + line_step)
+                mirrored = max(0, min(stop, lines // 2) - start)
+                yield slice(a, min(group.count, a + angle_step)), slice(start, stop), mirrored
 
     def _weights(
         self, group: _Group, angles: slice, lines: slice, like: torch.Tensor, work: list[torch.Tensor]
     ) -> tuple[torch.Tensor, torch.Tensor, torch.Tensor, torch.Tensor]:
-        """Slot index (int64, flat) and the three weights of a block, in ``like``'s dtype."""
+        """Slot index (int64) and the three weights of a block, in ``like``'s dtype.
+
+        All four are shaped ``(angles, lines, inner)``; the index counts slots
+        from the block's first work row, minus one (the lowest bin's slot).
+        """
         outer_fraction, outer_whole, inner_fraction, inner_whole = (
             t.like_real(like) for t in group.tables
         )
         rise, slope, level, gain, square = group.constants.like_real(like)[angles].unbind(1)
         shape = (angles.stop - angles.start, lines.stop - lines.start, inner_fraction.shape[1])
         size = shape[0] * shape[1] * shape[2]
-        frac, near, ramp, low, high, scaled, index32, index = (w[:size].view(shape) for w in work)
+        frac, near, ramp, low, high, scaled, index32, index = (w[:size].view(shape) for w in work[:8])
         torch.add(
             outer_fraction[angles, lines].unsqueeze(2), inner_fraction[angles].unsqueeze(1), out=frac
         )
         torch.round(frac, out=near)
         frac.sub_(near)
-        # Slot of the lowest bin: the block's own sinogram rows start at slot 0,
-        # each row holds `stride` slots of which the first `pad` are padding.
         rows = torch.arange(shape[0], dtype=like.dtype, device=like.device)
         inner_whole = inner_whole[angles] + (rows * self.stride + (self.pad - 1)).unsqueeze(1)
         near.add_(outer_whole[angles, lines].unsqueeze(2)).add_(inner_whole.unsqueeze(1))
@@ -185,40 +196,76 @@ class FootprintKernel:
         torch.mul(ramp, square, out=near)
         torch.mul(frac, gain, out=high).add_(level).clamp_(min=0.0).addcmul_(ramp, near)
         middle = torch.add(low, high, out=near).neg_().add_(1.0)
-        return index.view(-1), low, middle, high
+        return index, low, middle, high
+
+    def _mirrored_index(
+        self, index: torch.Tensor, mirrored: int, work: list[torch.Tensor]
+    ) -> torch.Tensor:
+        """Slot index of the reflected pixels: bin ``n`` becomes ``D - 1 - n``.
+
+        A reflected pixel sits at ``2 c - s`` with ``c = (D - 1)/2``, so its
+        fraction is ``-f`` (the low and high weights swap, the middle one
+        stays) and its nearest bin ``D - 1 - n``; at a rounding tie the other
+        choice of nearest bin gives the same weights per bin.
+        """
+        rows = index.shape[0]
+        offsets = work[8][:rows].view(rows, 1, 1)
+        target = work[9][: rows * mirrored * index.shape[2]].view(rows, mirrored, index.shape[2])
+        return torch.sub(offsets, index[:, :mirrored], out=target)
 
     def _work(self, like: torch.Tensor) -> list[torch.Tensor]:
-        size = min(
-            BLOCK_PAIRS + max(self.shape), self.n_angles * self.shape[0] * self.shape[1]
-        )
-        floats = [torch.empty(size, dtype=like.dtype, device=like.device) for _ in range(6)]
+        size = min(BLOCK_PAIRS + max(self.shape), self.n_angles * self.shape[0] * self.shape[1])
+        device = like.device
+        floats = [torch.empty(size, dtype=like.dtype, device=device) for _ in range(6)]
+        # Reflection offsets per work row: 2 (row * stride + pad - 1) + D - 1.
+        rows = torch.arange(self.n_angles, dtype=torch.int64, device=device)
+        offsets = 2 * (rows * self.stride + self.pad - 1) + self.n_detectors - 1
         return floats + [
-            torch.empty(size, dtype=torch.int32, device=like.device),
-            torch.empty(size, dtype=torch.int64, device=like.device),
+            torch.empty(size, dtype=torch.int32, device=device),
+            torch.empty(size, dtype=torch.int64, device=device),
+            offsets,
+            torch.empty(size, dtype=torch.int64, device=device),
+            torch.empty(size, dtype=like.dtype, device=device),
         ]
 
     # ------------------------------------------------------------- transforms
+    def _images(self, images: torch.Tensor, group: _Group) -> tuple[torch.Tensor, torch.Tensor]:
+        """The images in the group's loop order, and the same point-reflected."""
+        ordered = images.transpose(1, 2) if group.transposed else images
+        return ordered.contiguous(), ordered.flip(1, 2).contiguous()
+
     def forward(self, x: torch.Tensor) -> torch.Tensor:
         """Sinograms ``(..., n_angles, n_detectors)`` of images ``(..., H, W)``."""
         lead = x.shape[:-2]
         images = x.reshape(-1, *self.shape)
-        transposed = images.transpose(1, 2).contiguous() if any(g.transposed for g in self.groups) else None
         count = images.shape[0]
         slots = torch.zeros(count, self.n_angles * self.stride, dtype=x.dtype, device=x.device)
         work = self._work(x)
-        product = work[2]
         for group in self.groups:
-            source = transposed if group.transposed else images
-            for angles, lines in self._blocks(group):
+            source, reflected = self._images(images, group)
+            for angles, lines, mirrored in self._blocks(group):
                 index, low, middle, high = self._weights(group, angles, lines, x, work)
                 base = (group.first + angles.start) * self.stride
                 span = (angles.stop - angles.start) * self.stride - 2
-                values = product[: index.numel()].view(low.shape)
+                parts = [(index, source, lines, (low, middle, high))]
+                if mirrored:
+                    half = slice(None), slice(0, mirrored)
+                    parts.append(
+                        (
+                            self._mirrored_index(index, mirrored, work),
+                            reflected,
+                            slice(lines.start, lines.start + mirrored),
+                            (high[half], middle[half], low[half]),
+                        )
+                    )
                 for n in range(count):
-                    line_values = source[n, lines]
-                    for shift, weight in ((0, low), (1, middle), (2, high)):
-                        torch.mul(weight, line_values, out=values)
-                        slots[n].narrow(0, base + shift, span).scatter_add_(0, index, values.view(-1))
+                    row = slots[n]
+                    for where, pixels, chosen, weights in parts:
+                        values = work[2][: where.numel()].view(where.shape)
+                        flat = where.reshape(-1)
+                        for shift, weight in enumerate(weights):
+                            torch.mul(weight, pixels[n, chosen], out=values)
+                            row.narrow(0, base + shift, span).scatter_add_(0, flat, values.view(-1))
         sinograms = slots.view(count, self.n_angles, self.stride)[
             :, self.inverse_order.to(x.device), self.pad : self.pad + self.n_detectors
         ]
@@ -234,27 +281,40 @@ class FootprintKernel:
         slots = slots.view(count, -1)
         height, width = self.shape
         images = y.new_zeros(count, height, width)
-        transposed = y.new_zeros(count, width, height) if any(g.transposed for g in self.groups) else None
         work = self._work(y)
-        gathered, accumulated = work[2], work[5]
         for group in self.groups:
-            target = transposed if group.transposed else images
-            for angles, lines in self._blocks(group):
-                index, low, middle, high = self._weights(group, angles, lines, y, work)
+            lines, length = (width, height) if group.transposed else (height, width)
+            target = y.new_zeros(count, lines, length)
+            reflected = y.new_zeros(count, lines, length)
+            for angles, chosen, mirrored in self._blocks(group):
+                index, low, middle, high = self._weights(group, angles, chosen, y, work)
                 base = (group.first + angles.start) * self.stride
                 span = (angles.stop - angles.start) * self.stride - 2
-                values = gathered[: index.numel()]
-                total = accumulated[: index.numel()].view(low.shape)
-                term = values.view(low.shape)
+                parts = [(index, target, chosen, (low, middle, high))]
+                if mirrored:
+                    half = slice(None), slice(0, mirrored)
+                    parts.append(
+                        (
+                            self._mirrored_index(index, mirrored, work),
+                            reflected,
+                            slice(chosen.start, chosen.start + mirrored),
+                            (high[half], middle[half], low[half]),
+                        )
+                    )
                 for n in range(count):
                     row = slots[n]
-                    torch.index_select(row.narrow(0, base, span), 0, index, out=values)
-                    torch.mul(term, low, out=total)
-                    for shift, weight in ((1, middle), (2, high)):
-                        torch.index_select(row.narrow(0, base + shift, span), 0, index, out=values)
-                        total.addcmul_(term, weight)
-                    target[n, lines] += total.sum(0)
-        if transposed is not None:
-            images += transposed.transpose(1, 2)
+                    for where, into, block_lines, weights in parts:
+                        flat = where.reshape(-1)
+                        values = work[2][: flat.numel()]
+                        term = values.view(where.shape)
+                        total = work[10][: flat.numel()].view(where.shape)
+                        for shift, weight in enumerate(weights):
+                            torch.index_select(row.narrow(0, base + shift, span), 0, flat, out=values)
+                            if shift == 0:
+                                torch.mul(term, weight, out=total)
+                            else:
+                                total.addcmul_(term, weight)
+                        into[n, block_lines] += total.sum(0)
+            target += reflected.flip(1, 2)
+            images += target.transpose(1, 2) if group.transposed else target
         return images.reshape(*lead, height, width)
-

@@ -1,0 +1,147 @@
+"""Scale of the parallel-beam projector: stored matrix against matrix-free, in one run.
+
+Three scenes, each in a fresh child process so that its peak resident memory
+(``resource.getrusage(...).ru_maxrss``, which includes the interpreter, numpy
+and torch, printed separately as "after import") is its own:
+
+* ``compare``: 256 x 256 pixels, 180 angles. Set-up time and peak memory of
+  each path; forward + adjoint through the fast path (``apply`` then
+  ``apply_adjoint``), float32 and float64, the two paths timed in turn within
+  every round (median of the rounds); the ratio matrix-free / stored.
+* ``512``: 512 x 512, 360 angles, matrix-free (what ``storage="auto"``
+  picks): forward + adjoint in both precisions, the certified norm bound, and
+  the peak memory of all of it (the stored path needs about 7.8 GB here).
+* ``1024``: 1024 x 1024, 720 angles, matrix-free: forward + adjoint in
+  float32, then a short guarded run (forward-backward with wavelet
+  shrinkage, a few iterations; its step comes from the certified norm
+  bound), with the peak memory.
+
+Run: ``.venv/bin/python benchmarks/bench_projector_scale.py [compare|512|1024]``
+(no argument: all three). Torch keeps its default thread count; the load
+average is printed because the machine may be shared, and ratios are only
+meaningful within one run.
+"""
+
+from __future__ import annotations
+
+import os
+import resource
+import statistics
+import subprocess
+import sys
+import time
+
+import numpy as np
+import torch
+
+import pnpguard as pg
+
+ROUNDS = 7
+
+
+def peak_mb() -> float:
+    """Peak resident memory of this process so far, in MB (Linux reports KiB)."""
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+
+
+def timed(function) -> tuple[float, object]:
+    start = time.perf_counter()
+    value = function()
+    return time.perf_counter() - start, value
+
+
+def phantom(size: int) -> np.ndarray:
+    return pg.phantoms.make_phantom("shepp_logan", (size, size))
+
+
+def header(text: str) -> None:
+    print(
+        f"== {text}; torch threads {torch.get_num_threads()}, load average "
+        f"{os.getloadavg()[0]:.2f}, after import {peak_mb():.0f} MB",
+        flush=True,
+    )
+
+
+def compare() -> None:
+    size, angles = 256, np.arange(180.0)
+    header(f"{size} x {size}, {angles.size} angles: stored matrix vs matrix-free")
+    setup_matrix, stored = timed(lambda: pg.ParallelProjection((size, size), angles, storage="matrix"))
+    after_matrix = peak_mb()
+    setup_free, free = timed(lambda: pg.ParallelProjection((size, size), angles, storage="matrix-free"))
+    print(f"set-up: stored {setup_matrix:.2f} s (peak {after_matrix:.0f} MB), matrix-free {setup_free:.3f} s")
+    image = phantom(size)
+    for dtype in (torch.float32, torch.float64):
+        x = torch.from_numpy(image).to(dtype)
+        error = float((free.apply(x) - stored.apply(x)).abs().max() / stored.apply(x).abs().max())
+        paths = {"stored": stored, "matrix-free": free}
+        times = {name: [] for name in paths}
+        for op in paths.values():
+            op.apply_adjoint(op.apply(x))  # warm-up (float32 copy of the matrix)
+        for _ in range(ROUNDS):
+            for name, op in paths.items():
+                seconds, _ = timed(lambda op=op: op.apply_adjoint(op.apply(x)))
+                times[name].append(seconds)
+        stored_time = statistics.median(times["stored"])
+        free_time = statistics.median(times["matrix-free"])
+        print(
+            f"{str(dtype).replace('torch.', '')}: forward + adjoint stored {1e3 * stored_time:.1f} ms, "
+            f"matrix-free {1e3 * free_time:.1f} ms, ratio {free_time / stored_time:.2f} "
+            f"(median of {ROUNDS} interleaved rounds); largest relative difference {error:.1e}"
+        )
+    print(f"peak {peak_mb():.0f} MB", flush=True)
+
+
+def scale(size: int, n_angles: int, *, run: bool) -> None:
+    angles = np.arange(n_angles) * (180.0 / n_angles)
+    header(f"{size} x {size}, {n_angles} angles, storage='auto'")
+    setup, op = timed(lambda: pg.ParallelProjection((size, size), angles))
+    print(f"set-up {setup:.3f} s, storage {op.storage!r}, sinogram {op.out_shape}")
+    image = phantom(size)
+    dtypes = (torch.float32,) if run else (torch.float32, torch.float64)
+    for dtype in dtypes:
+        x = torch.from_numpy(image).to(dtype)
+        forward, sinogram = timed(lambda: op.apply(x))
+        adjoint, _ = timed(lambda: op.apply_adjoint(sinogram))
+        print(
+            f"{str(dtype).replace('torch.', '')}: forward {forward:.2f} s, adjoint {adjoint:.2f} s, "
+            f"peak {peak_mb():.0f} MB",
+            flush=True,
+        )
+    seconds, bound = timed(op.norm_bound)
+    print(f"norm_bound {bound.value:.3f} ({bound.method}, certified={bound.certified}) in {seconds:.1f} s, "
+          f"peak {peak_mb():.0f} MB", flush=True)
+    if run:
+        rng = np.random.default_rng(0)
+        clean = op.forward(image.astype(np.float32))
+        data = clean + 0.01 * float(clean.max()) * rng.standard_normal(clean.shape).astype(np.float32)
+        fidelity = pg.LeastSquares(op, data, sigma=0.01 * float(clean.max()))
+        seconds, result = timed(
+            lambda: pg.reconstruct("fb", fidelity, pg.WaveletShrinkage(sigma=0.02), max_iter=3)
+        )
+        print(
+            f"guarded forward-backward, 3 iterations: {seconds:.1f} s, status "
+            f"{result.guarantee.status!r}, PSNR {pg.psnr(result.x, image.astype(np.float32), data_range=1.0):.2f} dB "
+            f"(start {pg.psnr(fidelity.start_image(), image.astype(np.float32), data_range=1.0):.2f} dB), "
+            f"peak {peak_mb():.0f} MB",
+            flush=True,
+        )
+
+
+SCENES = {
+    "compare": compare,
+    "512": lambda: scale(512, 360, run=False),
+    "1024": lambda: scale(1024, 720, run=True),
+}
+
+
+def main() -> None:
+    chosen = sys.argv[1:] or list(SCENES)
+    if len(chosen) == 1:
+        SCENES[chosen[0]]()
+        return
+    for name in chosen:
+        subprocess.run([sys.executable, __file__, name], check=True)
+
+
+if __name__ == "__main__":
+    main()
