@@ -16,14 +16,20 @@ and torch, printed separately as "after import") is its own:
   shrinkage, a few iterations; its step comes from the certified norm
   bound), with the peak memory.
 
-Run: ``.venv/bin/python benchmarks/bench_projector_scale.py [compare|512|1024]``
-(no argument: all three). Torch keeps its default thread count; the load
+Run: ``.venv/bin/python benchmarks/bench_projector_scale.py [--threads N]
+[compare|512|1024]`` (no scene: all three). Torch keeps its default thread
+count unless ``--threads`` is given: the matrix-free path issues a few
+thousand small tensor operations per product, each a parallel region, and
+with several threads on a machine that other processes keep busy every
+region waits for a descheduled thread (measured: 30x slower with 2 threads
+beside a load of 10 on 2 cores, while one thread kept its speed). The load
 average is printed because the machine may be shared, and ratios are only
 meaningful within one run.
 """
 
 from __future__ import annotations
 
+import argparse
 import os
 import resource
 import statistics
@@ -135,12 +141,18 @@ SCENES = {
 
 
 def main() -> None:
-    chosen = sys.argv[1:] or list(SCENES)
-    if len(chosen) == 1:
-        SCENES[chosen[0]]()
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("scenes", nargs="*", choices=[*SCENES, []], default=list(SCENES))
+    parser.add_argument("--threads", type=int, default=None, help="torch threads (default: torch's)")
+    arguments = parser.parse_args()
+    if arguments.threads is not None:
+        torch.set_num_threads(arguments.threads)
+    if len(arguments.scenes) == 1:
+        SCENES[arguments.scenes[0]]()
         return
-    for name in chosen:
-        subprocess.run([sys.executable, __file__, name], check=True)
+    threads = [] if arguments.threads is None else ["--threads", str(arguments.threads)]
+    for name in arguments.scenes:
+        subprocess.run([sys.executable, __file__, *threads, name], check=True)
 
 
 if __name__ == "__main__":
