@@ -142,9 +142,13 @@ SCENES = {
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("scenes", nargs="*", choices=[*SCENES, []], default=list(SCENES))
+    parser.add_argument("scenes", nargs="*", metavar="scene", help=f"any of {', '.join(SCENES)} (default: all)")
     parser.add_argument("--threads", type=int, default=None, help="torch threads (default: torch's)")
     arguments = parser.parse_args()
+    unknown = sorted(set(arguments.scenes) - set(SCENES))
+    if unknown:
+        parser.error(f"unknown scene(s) {', '.join(unknown)}; valid: {', '.join(SCENES)}")
+    arguments.scenes = arguments.scenes or list(SCENES)
     if arguments.threads is not None:
         torch.set_num_threads(arguments.threads)
     if len(arguments.scenes) == 1:

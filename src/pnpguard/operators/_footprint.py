@@ -24,6 +24,26 @@ BLOCK_PAIRS = 1 << 17
 #: it would carry is under ``1e-30``), so ``1 / narrow`` never overflows.
 _NARROW_FLOOR = 1e-30
 
+#: Angles ``t`` and ``180 - t`` are paired (one set of weights serves both)
+#: when their cosines are opposite and their sines equal to within this.
+_PAIR_TOLERANCE = 1e-15
+
+
+def _mirror_pairs(cos: np.ndarray, sin: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Indices ``(first, second)`` of disjoint angle pairs with ``(cos, sin)`` of
+    the second equal to ``(-cos, sin)`` of the first (``t`` and ``180 - t``)."""
+    close = (np.abs(cos[:, None] + cos[None, :]) <= _PAIR_TOLERANCE) & (
+        np.abs(sin[:, None] - sin[None, :]) <= _PAIR_TOLERANCE
+    )
+    np.fill_diagonal(close, False)
+    first, second, used = [], [], np.zeros(cos.size, dtype=bool)
+    for a, b in zip(*np.nonzero(close)):
+        if a < b and not used[a] and not used[b]:
+            used[a] = used[b] = True
+            first.append(a)
+            second.append(b)
+    return np.array(first, dtype=np.int64), np.array(second, dtype=np.int64)
+
 
 class _Group:
     """Angles sharing a loop order, with their geometry tables (float64 masters).
@@ -31,7 +51,9 @@ class _Group:
     ``outer``/``inner`` name the image axis of the block's rows and of its
     contiguous inner loop: the inner axis is the one along which the detector
     position changes fastest (so consecutive pixels seldom share a bin and the
-    scatter does not stall on repeated indices).
+    scatter does not stall on repeated indices). The group's work rows start
+    at ``first``; when ``paired``, the rows ``first + count ...`` hold the
+    angles ``180 - t`` of the group's angles ``t``, in the same order.
     """
 
     def __init__(
@@ -43,10 +65,12 @@ class _Group:
         inner_whole: np.ndarray,
         constants: np.ndarray,
         transposed: bool,
+        paired: bool,
     ):
         self.first = first
         self.count = outer_fraction.shape[0]
         self.transposed = transposed
+        self.paired = paired
         self.tables = [
             TransferCache(torch.from_numpy(np.ascontiguousarray(a)))
             for a in (outer_fraction, outer_whole, inner_fraction, inner_whole)
@@ -125,22 +149,33 @@ class FootprintKernel:
         )[:, :, None, None]
         # Loop order per angle: inner axis = columns when |cos| >= |sin|.
         by_columns = np.abs(cos) >= np.abs(sin)
-        self.order = np.concatenate([np.flatnonzero(by_columns), np.flatnonzero(~by_columns)])
+        # The angle 180 - t sees the pixel at (x, y) where t sees (-x, y), so
+        # paired angles share their weights (computed once for t).
+        first_of_pair, second_of_pair = _mirror_pairs(cos, sin)
+        single = np.setdiff1d(np.arange(angles.size), np.concatenate([first_of_pair, second_of_pair]))
+        self.groups = []
+        order: list[int] = []
+        for columns in (True, False):
+            for paired in (True, False):
+                chosen = first_of_pair if paired else single
+                chosen = chosen[by_columns[chosen] == columns]
+                if chosen.size == 0:
+                    continue
+                row_terms = (v[chosen] - v_whole[chosen], v_whole[chosen])
+                column_terms = (u[chosen] - u_whole[chosen], u_whole[chosen])
+                outer, inner = (row_terms, column_terms) if columns else (column_terms, row_terms)
+                self.groups.append(
+                    _Group(
+                        len(order), outer[0], outer[1], inner[0], inner[1], constants[chosen],
+                        not columns, paired,
+                    )
+                )
+                order.extend(chosen)
+                if paired:
+                    order.extend(second_of_pair[np.isin(first_of_pair, chosen)])
+        self.order = np.array(order, dtype=np.int64)
         self.inverse_order = torch.from_numpy(np.argsort(self.order))
         self.order_tensor = torch.from_numpy(self.order)
-        self.groups = []
-        first = 0
-        for columns in (True, False):
-            chosen = np.flatnonzero(by_columns == columns)
-            if chosen.size == 0:
-                continue
-            row_terms = (v[chosen] - v_whole[chosen], v_whole[chosen])
-            column_terms = (u[chosen] - u_whole[chosen], u_whole[chosen])
-            outer, inner = (row_terms, column_terms) if columns else (column_terms, row_terms)
-            self.groups.append(
-                _Group(first, outer[0], outer[1], inner[0], inner[1], constants[chosen], not columns)
-            )
-            first += chosen.size
 
     # ------------------------------------------------------------------ blocks
     def _blocks(self, group: _Group):
@@ -229,10 +264,21 @@ class FootprintKernel:
         ]
 
     # ------------------------------------------------------------- transforms
-    def _images(self, images: torch.Tensor, group: _Group) -> tuple[torch.Tensor, torch.Tensor]:
-        """The images in the group's loop order, and the same point-reflected."""
-        ordered = images.transpose(1, 2) if group.transposed else images
-        return ordered.contiguous(), ordered.flip(1, 2).contiguous()
+    @staticmethod
+    def _variants(group: _Group) -> list[tuple[int, tuple[int, ...], bool]]:
+        """What each set of weights of a block serves: ``(row offset, flipped axes, mirrored)``.
+
+        In the group's loop order ``(lines, inner)``: the pixels themselves;
+        their point reflections (both axes flipped, mirrored index); and for
+        paired angles the partner rows, which see the image flipped along x,
+        directly and point-reflected (then flipped along y).
+        """
+        x_axis = 1 if group.transposed else 2
+        y_axis = 3 - x_axis
+        variants = [(0, (), False), (0, (1, 2), True)]
+        if group.paired:
+            variants += [(group.count, (x_axis,), False), (group.count, (y_axis,), True)]
+        return variants
 
     def forward(self, x: torch.Tensor) -> torch.Tensor:
         """Sinograms ``(..., n_angles, n_detectors)`` of images ``(..., H, W)``."""
@@ -241,31 +287,33 @@ class FootprintKernel:
         count = images.shape[0]
         slots = torch.zeros(count, self.n_angles * self.stride, dtype=x.dtype, device=x.device)
         work = self._work(x)
+        product = work[2]
         for group in self.groups:
-            source, reflected = self._images(images, group)
+            ordered = images.transpose(1, 2) if group.transposed else images
+            variants = [
+                (offset * self.stride, ordered.flip(axes).contiguous(), mirrored)
+                for offset, axes, mirrored in self._variants(group)
+            ]
             for angles, lines, mirrored in self._blocks(group):
                 index, low, middle, high = self._weights(group, angles, lines, x, work)
+                reflected = self._mirrored_index(index, mirrored, work) if mirrored else None
                 base = (group.first + angles.start) * self.stride
                 span = (angles.stop - angles.start) * self.stride - 2
-                parts = [(index, source, lines, (low, middle, high))]
-                if mirrored:
-                    half = slice(None), slice(0, mirrored)
-                    parts.append(
-                        (
-                            self._mirrored_index(index, mirrored, work),
-                            reflected,
-                            slice(lines.start, lines.start + mirrored),
-                            (high[half], middle[half], low[half]),
-                        )
-                    )
-                for n in range(count):
-                    row = slots[n]
-                    for where, pixels, chosen, weights in parts:
-                        values = work[2][: where.numel()].view(where.shape)
-                        flat = where.reshape(-1)
+                for offset, pixels, flipped in variants:
+                    if flipped and not mirrored:
+                        continue
+                    where = reflected if flipped else index
+                    rows = where.shape[1]
+                    chosen = slice(lines.start, lines.start + rows)
+                    weights = (high, middle, low) if flipped else (low, middle, high)
+                    values = product[: where.numel()].view(where.shape)
+                    flat = where.reshape(-1)
+                    for n in range(count):
+                        row = slots[n]
                         for shift, weight in enumerate(weights):
-                            torch.mul(weight, pixels[n, chosen], out=values)
-                            row.narrow(0, base + shift, span).scatter_add_(0, flat, values.view(-1))
+                            torch.mul(weight[:, :rows], pixels[n, chosen], out=values)
+                            target = row.narrow(0, base + offset + shift, span)
+                            target.scatter_add_(0, flat, values.view(-1))
         sinograms = slots.view(count, self.n_angles, self.stride)[
             :, self.inverse_order.to(x.device), self.pad : self.pad + self.n_detectors
         ]
@@ -282,39 +330,39 @@ class FootprintKernel:
         height, width = self.shape
         images = y.new_zeros(count, height, width)
         work = self._work(y)
+        gathered, accumulated = work[2], work[10]
         for group in self.groups:
             lines, length = (width, height) if group.transposed else (height, width)
-            target = y.new_zeros(count, lines, length)
-            reflected = y.new_zeros(count, lines, length)
-            for angles, chosen, mirrored in self._blocks(group):
-                index, low, middle, high = self._weights(group, angles, chosen, y, work)
+            variants = [
+                (offset * self.stride, axes, y.new_zeros(count, lines, length), mirrored)
+                for offset, axes, mirrored in self._variants(group)
+            ]
+            for angles, block_lines, mirrored in self._blocks(group):
+                index, low, middle, high = self._weights(group, angles, block_lines, y, work)
+                reflected = self._mirrored_index(index, mirrored, work) if mirrored else None
                 base = (group.first + angles.start) * self.stride
                 span = (angles.stop - angles.start) * self.stride - 2
-                parts = [(index, target, chosen, (low, middle, high))]
-                if mirrored:
-                    half = slice(None), slice(0, mirrored)
-                    parts.append(
-                        (
-                            self._mirrored_index(index, mirrored, work),
-                            reflected,
-                            slice(chosen.start, chosen.start + mirrored),
-                            (high[half], middle[half], low[half]),
-                        )
-                    )
-                for n in range(count):
-                    row = slots[n]
-                    for where, into, block_lines, weights in parts:
-                        flat = where.reshape(-1)
-                        values = work[2][: flat.numel()]
-                        term = values.view(where.shape)
-                        total = work[10][: flat.numel()].view(where.shape)
+                for offset, _, into, flipped in variants:
+                    if flipped and not mirrored:
+                        continue
+                    where = reflected if flipped else index
+                    rows = where.shape[1]
+                    chosen = slice(block_lines.start, block_lines.start + rows)
+                    weights = (high, middle, low) if flipped else (low, middle, high)
+                    flat = where.reshape(-1)
+                    values = gathered[: flat.numel()]
+                    term = values.view(where.shape)
+                    total = accumulated[: flat.numel()].view(where.shape)
+                    for n in range(count):
+                        row = slots[n]
                         for shift, weight in enumerate(weights):
-                            torch.index_select(row.narrow(0, base + shift, span), 0, flat, out=values)
+                            source = row.narrow(0, base + offset + shift, span)
+                            torch.index_select(source, 0, flat, out=values)
                             if shift == 0:
-                                torch.mul(term, weight, out=total)
+                                torch.mul(term, weight[:, :rows], out=total)
                             else:
-                                total.addcmul_(term, weight)
-                        into[n, block_lines] += total.sum(0)
-            target += reflected.flip(1, 2)
+                                total.addcmul_(term, weight[:, :rows])
+                        into[n, chosen] += total.sum(0)
+            target = sum(into.flip(axes) for _, axes, into, _ in variants)
             images += target.transpose(1, 2) if group.transposed else target
         return images.reshape(*lead, height, width)
