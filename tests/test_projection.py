@@ -155,8 +155,10 @@ def test_storage_rule_and_forcing():
     small = ParallelProjection((16, 16), np.arange(0.0, 180.0, 10.0))
     assert small.storage == "matrix" and small.nnz > 0
     assert matrix_bytes((16, 16), 18) <= MATRIX_BYTES_LIMIT
-    # The documented rule: 55 bytes per pixel-angle pair against 256 MiB.
-    assert matrix_bytes((256, 256), 180) == 55 * 256 * 256 * 180 > MATRIX_BYTES_LIMIT
+    # The documented rule: 55 bytes per pixel-angle pair against 1 GiB.
+    assert matrix_bytes((256, 256), 180) == 55 * 256 * 256 * 180 <= MATRIX_BYTES_LIMIT
+    assert matrix_bytes((256, 256), 360) > MATRIX_BYTES_LIMIT
+    assert ParallelProjection((512, 512), np.arange(360) * 0.5).storage == "matrix-free"
     # A 1024 x 1024 scan with 720 angles is matrix-free and costs nothing to set up.
     large = ParallelProjection((1024, 1024), np.arange(720) * 0.25)
     assert large.storage == "matrix-free" and large.nnz is None
