@@ -251,6 +251,10 @@ class ParallelProjection(LinearOperator):
     512 x 512 with 360 angles the whole process peaks at about 0.35 GB
     (the stored path: 7.8 GB) and a 1024 x 1024 scan with 720 angles is
     reconstructed in under 0.5 GB (``benchmarks/bench_projector_scale.py``).
+    The matrix-free path runs a few thousand small tensor operations per
+    product: with several torch threads on a machine that other processes
+    keep busy it slows down many times over, while one thread keeps its
+    speed.
 
     Norm: the entries are nonnegative on both paths (the computed weights
     are clamped at 0 and the middle weight is at least 1/2), so
