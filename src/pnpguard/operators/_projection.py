@@ -28,7 +28,7 @@ STORAGE = ("auto", "matrix", "matrix-free")
 MATRIX_BYTES_PER_PAIR = 55
 
 #: ``storage="auto"`` stores the matrix when it takes at most this many bytes
-#: (its products are faster: the matrix-free ones take 2.5-3 times as long at
+#: (its products are faster: the matrix-free ones take 2.3-3 times as long at
 #: 256 x 256 with 180 angles, ``benchmarks/bench_projector_scale.py``).
 MATRIX_BYTES_LIMIT = 2**30
 
@@ -246,8 +246,8 @@ class ParallelProjection(LinearOperator):
     seconds. With ``storage="matrix-free"`` each product recomputes the
     entries from the geometry (a scatter for the forward map, a gather with
     the same weights for the adjoint); the two paths agree to rounding. At
-    256 x 256 with 180 angles a matrix-free forward + adjoint takes 2.5-3
-    times the stored product, with no set-up and no stored matrix; at
+    256 x 256 with 180 angles a matrix-free forward + adjoint takes 2.3-3
+    times the stored product (one torch thread), with no set-up and no stored matrix; at
     512 x 512 with 360 angles the whole process peaks at about 0.35 GB
     (the stored path: 7.8 GB) and a 1024 x 1024 scan with 720 angles is
     reconstructed in under 0.5 GB (``benchmarks/bench_projector_scale.py``).
