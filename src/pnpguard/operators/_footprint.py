@@ -22,6 +22,34 @@ from ._cache import TransferCache
 #: 2^18 were both slower at 256 x 256 with 180 angles).
 BLOCK_PAIRS = 1 << 17
 
+#: Block size when torch runs several threads: below torch's parallel grain
+#: (32768 elements), so no operation of a block opens a parallel region.
+#: Each region wakes the other threads, and on a machine that other processes
+#: keep busy every wake-up waits for a free core (measured: 2 threads beside a
+#: load of 8 on 2 cores made a product 10-20 times slower with BLOCK_PAIRS).
+SERIAL_BLOCK_PAIRS = (1 << 15) - 1
+
+
+def _block_pairs() -> int:
+    """Pairs per block for torch's current thread count."""
+    return BLOCK_PAIRS if torch.get_num_threads() == 1 else SERIAL_BLOCK_PAIRS
+
+
+def _flipped(images: torch.Tensor, axes: tuple[int, ...]) -> torch.Tensor:
+    """A contiguous copy of ``(count, lines, length)`` images flipped along ``axes``.
+
+    Copied in pieces of at most :data:`SERIAL_BLOCK_PAIRS` elements, for the
+    reason given there.
+    """
+    flipped = torch.empty_like(images, memory_format=torch.contiguous_format)
+    lines = images.shape[1]
+    step = max(1, SERIAL_BLOCK_PAIRS // (images.shape[0] * images.shape[2]))
+    for start in range(0, lines, step):
+        stop = min(lines, start + step)
+        source = slice(lines - stop, lines - start) if 1 in axes else slice(start, stop)
+        flipped[:, start:stop] = images[:, source].flip(axes) if axes else images[:, source]
+    return flipped
+
 #: Below this the narrower of ``|cos|``, ``|sin|`` is treated as 0 (the weight
 #: it would carry is under ``1e-30``), so ``1 / narrow`` never overflows.
 _NARROW_FLOOR = 1e-30
@@ -197,10 +225,13 @@ class FootprintKernel:
         """
         lines, length = (self.shape[1], self.shape[0]) if group.transposed else self.shape
         half = (lines + 1) // 2
-        if half * length <= BLOCK_PAIRS:
-            angle_step, line_step = max(1, BLOCK_PAIRS // (half * length)), half
+        pairs = _block_pairs()
+        if half * length <= pairs:
+            angle_step, line_step = max(1, pairs // (half * length)), half
         else:
-            angle_step, line_step = 1, max(1, BLOCK_PAIRS // length)
+            # Equal blocks of lines, each at most `pairs` (one line if longer).
+            pieces = -(-half * length // pairs)
+            angle_step, line_step = 1, max(1, min(pairs // length, -(-half // pieces)))
         for a in range(0, group.count, angle_step):
             for start in range(0, half, line_step):
                 stop = min(half, start + line_step)
@@ -225,7 +256,11 @@ class FootprintKernel:
         torch.add(
             outer_fraction[angles, lines].unsqueeze(2), inner_fraction[angles].unsqueeze(1), out=frac
         )
-        torch.round(frac, out=near)
+        # Nearest whole bin of the fraction sum f (in [-1, 1]): floor(f + 1/2),
+        # as the truncation of the positive f + 3/2 minus 1 (torch's round and
+        # floor open a parallel region even on small tensors).
+        index32.copy_(torch.add(frac, 1.5, out=near))
+        near.copy_(index32).sub_(1.0)
         frac.sub_(near)
         rows = torch.arange(shape[0], dtype=like.dtype, device=like.device)
         inner_whole = inner_whole[angles] + (rows * self.stride + (self.pad - 1)).unsqueeze(1)
@@ -260,7 +295,7 @@ class FootprintKernel:
 
     def _work(self, like: torch.Tensor) -> list[torch.Tensor]:
         """Work buffers of one product, reused by every block (in ``like``'s dtype and device)."""
-        size = min(BLOCK_PAIRS + max(self.shape), self.n_angles * self.shape[0] * self.shape[1])
+        size = min(_block_pairs() + max(self.shape), self.n_angles * self.shape[0] * self.shape[1])
         device = like.device
         floats = [torch.empty(size, dtype=like.dtype, device=device) for _ in range(6)]
         # Reflection offsets per work row: 2 (row * stride + pad - 1) + D - 1.
@@ -302,7 +337,7 @@ class FootprintKernel:
         for group in self.groups:
             ordered = images.transpose(1, 2) if group.transposed else images
             variants = [
-                (offset * self.stride, ordered.flip(axes).contiguous(), mirrored)
+                (offset * self.stride, _flipped(ordered, axes), mirrored)
                 for offset, axes, mirrored in self._variants(group)
             ]
             for angles, lines, mirrored in self._blocks(group):
@@ -374,6 +409,6 @@ class FootprintKernel:
                             else:
                                 total.addcmul_(term, weight[:, :rows])
                         into[n, chosen] += total.sum(0)
-            target = sum(into.flip(axes) for _, axes, into, _ in variants)
+            target = sum(_flipped(into, axes) for _, axes, into, _ in variants)
             images += target.transpose(1, 2) if group.transposed else target
         return images.reshape(*lead, height, width)
