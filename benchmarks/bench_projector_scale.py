@@ -21,10 +21,11 @@ and torch, printed separately as "after import") is its own:
 Run: ``.venv/bin/python benchmarks/bench_projector_scale.py [--threads N]
 [compare|512|1024]`` (no scene: all three). Torch keeps its default thread
 count unless ``--threads`` is given: the matrix-free path issues a few
-thousand small tensor operations per product, each a parallel region, and
-with several threads on a machine that other processes keep busy every
-region waits for a descheduled thread (measured: 30x slower with 2 threads
-beside a load of 10 on 2 cores, while one thread kept its speed). The load
+thousand small tensor operations per product and, with several threads,
+keeps them below torch's parallel grain (on a machine that other processes
+keep busy, every parallel region waits for a descheduled thread); measured
+beside a load of 5-8 on 2 cores, the ratio was 6-7 with 2 threads and 2.3-3
+with one. The load
 average is printed because the machine may be shared, and ratios are only
 meaningful within one run.
 """

@@ -252,9 +252,10 @@ class ParallelProjection(LinearOperator):
     (the stored path: 7.8 GB) and a 1024 x 1024 scan with 720 angles is
     reconstructed in under 0.5 GB (``benchmarks/bench_projector_scale.py``).
     The matrix-free path runs a few thousand small tensor operations per
-    product: with several torch threads on a machine that other processes
-    keep busy it slows down many times over, while one thread keeps its
-    speed.
+    product; with several torch threads it keeps each below torch's parallel
+    grain (a parallel region waits for busy cores on a shared machine), which
+    costs speed: beside other busy processes it measured 6-7 times the stored
+    product with 2 threads, 2.3-3 times with one.
 
     Norm: the entries are nonnegative on both paths (the computed weights
     are clamped at 0 and the middle weight is at least 1/2), so
