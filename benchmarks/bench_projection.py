@@ -4,7 +4,9 @@ Scene: the lab's sparse-view test objects at full sampling, a 256 x 256
 Shepp-Logan phantom (skimage.data.shepp_logan_phantom, resized) and 180
 angles over 180 degrees. Timed, as the median of a few runs:
 
-* setup of :class:`pnpguard.ParallelProjection` (system matrix and transpose);
+* setup of :class:`pnpguard.ParallelProjection` with ``storage="matrix"``
+  (system matrix and transpose; the matrix-free path is compared with it in
+  ``bench_projector_scale.py``);
 * one forward projection plus one backprojection (adjoint), float32 and
   float64, through the public numpy interface;
 * ``skimage.transform.radon`` plus ``skimage.transform.iradon(filter_name=None)``
@@ -54,8 +56,8 @@ def main() -> None:
         f"load average {os.getloadavg()[0]:.2f}"
     )
 
-    setup = median_time(lambda: ParallelProjection((SIZE, SIZE), ANGLES), repeats=3)
-    op = ParallelProjection((SIZE, SIZE), ANGLES)
+    setup = median_time(lambda: ParallelProjection((SIZE, SIZE), ANGLES, storage="matrix"), repeats=3)
+    op = ParallelProjection((SIZE, SIZE), ANGLES, storage="matrix")
     sinogram = op.forward(image)
     op.forward(image32)  # build the float32 copy outside the timing
 
@@ -71,7 +73,7 @@ def main() -> None:
         lambda: iradon(reference_sinogram, ANGLES, circle=False, filter_name="ramp"), repeats=3
     )
 
-    fresh = ParallelProjection((SIZE, SIZE), ANGLES)
+    fresh = ParallelProjection((SIZE, SIZE), ANGLES, storage="matrix")
     start = time.perf_counter()
     norm = fresh.norm()
     norm_time = time.perf_counter() - start

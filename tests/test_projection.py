@@ -15,6 +15,9 @@ from pnpguard import ParallelProjection, filtered_backprojection
 from pnpguard.operators import Convolution
 
 FILTERS = ["cosine", "hamming", "hann", "ramp", "shepp-logan"]
+#: Both ways of computing the products: every test of the operator's
+#: mathematics runs on each.
+PATHS = ["matrix", "matrix-free"]
 
 
 # ----------------------------------------------------------------- helpers
@@ -56,12 +59,13 @@ def phantom_128() -> np.ndarray:
     return resize(shepp_logan_phantom(), (128, 128), anti_aliasing=True)
 
 
-@pytest.fixture(scope="module")
-def projector_128() -> ParallelProjection:
-    return ParallelProjection((128, 128), np.arange(180.0))
+@pytest.fixture(scope="module", params=PATHS)
+def projector_128(request) -> ParallelProjection:
+    return ParallelProjection((128, 128), np.arange(180.0), storage=request.param)
 
 
 # -------------------------------------------------------------- adjointness
+@pytest.mark.parametrize("storage", PATHS)
 @settings(max_examples=20, deadline=None)
 @given(
     height=st.integers(2, 11),
@@ -70,10 +74,10 @@ def projector_128() -> ParallelProjection:
     n_detectors=st.one_of(st.none(), st.integers(1, 20)),
     seed=st.integers(0, 2**31 - 1),
 )
-def test_dot_product(height, width, angles, n_detectors, seed):
+def test_dot_product(height, width, angles, n_detectors, seed, storage):
     # Definition of the adjoint, <A x, y> = <x, A^T y> (the dot-product test
     # of SciPy's tests/test_interface.py), in float64 on random geometries.
-    op = ParallelProjection((height, width), angles, n_detectors)
+    op = ParallelProjection((height, width), angles, n_detectors, storage=storage)
     rng = np.random.default_rng(seed)
     x = rng.standard_normal((height, width))
     y = rng.standard_normal(op.out_shape)
@@ -83,18 +87,102 @@ def test_dot_product(height, width, angles, n_detectors, seed):
     assert abs(np.sum(ax * y) - np.sum(x * aty)) <= 1e-12 * scale
 
 
-def test_adjoint_matrix_is_exact_transpose():
+@settings(max_examples=15, deadline=None)
+@given(
+    height=st.integers(1, 9),
+    width=st.integers(1, 9),
+    angles=st.lists(st.floats(-720.0, 720.0, allow_nan=False), min_size=1, max_size=8),
+    n_detectors=st.one_of(st.none(), st.integers(1, 25)),
+)
+def test_matrix_free_entries_equal_stored_entries(height, width, angles, n_detectors):
+    # The two paths compute the same pixel-footprint integrals (the stored
+    # matrix is assembled with numpy in float64, the matrix-free weights are
+    # recomputed with torch from split positions), so their dense matrices
+    # agree to float64 rounding on any geometry, including truncated
+    # detectors, negative angles and both loop orders (|cos| >= |sin| or not).
+    kwargs = {"n_detectors": n_detectors}
+    stored = dense_matrix(ParallelProjection((height, width), angles, storage="matrix", **kwargs))
+    free = dense_matrix(ParallelProjection((height, width), angles, storage="matrix-free", **kwargs))
+    np.testing.assert_allclose(free, stored, rtol=0, atol=1e-14)
+
+
+@pytest.mark.parametrize("shape", [(8, 8), (7, 10), (10, 5)])
+def test_matrix_free_paired_angles_equal_stored_entries(shape):
+    # Angles t and 180 - t (and their copies a full turn away) share one set
+    # of computed weights on the matrix-free path, applied to the image
+    # flipped along x; the dense matrices must still equal the stored ones
+    # (numpy assembly, float64), in both loop orders and with a repeated angle.
+    angles = [10.0, 170.0, 30.0, 150.0, 190.0, -10.0, 100.0, 80.0, 90.0, 0.0, 180.0, 45.0, 135.0, 45.0]
+    stored = dense_matrix(ParallelProjection(shape, angles, storage="matrix"))
+    free = dense_matrix(ParallelProjection(shape, angles, storage="matrix-free"))
+    np.testing.assert_allclose(free, stored, rtol=0, atol=1e-14)
+
+
+def test_matrix_free_near_axis_angles_and_exact_zeros():
+    # Angles a hair from the axes make the narrow side of the pixel profile
+    # tiny (1 / narrow is huge): the weights must stay finite, >= 0, sum to 1
+    # per pixel (each pixel's area, Kak & Slaney ch. 3) and agree with the
+    # stored matrix.
+    # (1e-45 degrees: its sine underflows float32 and its inverse overflows it.)
+    angles = [0.0, 1e-12, 90.0, 90.0 - 1e-9, 180.0, 1e-45, 45.0]
+    stored = dense_matrix(ParallelProjection((6, 7), angles, 11, storage="matrix"))
+    op = ParallelProjection((6, 7), angles, 11, storage="matrix-free")
+    free = dense_matrix(op)
+    assert np.isfinite(free).all() and free.min() >= 0.0
+    single = op.forward(np.ones((6, 7), dtype=np.float32))
+    assert np.isfinite(single).all()
+    np.testing.assert_allclose(single.sum(axis=1), 42.0, rtol=1e-6)
+    np.testing.assert_allclose(free.reshape(len(angles), 11, 42).sum(axis=1), 1.0, rtol=1e-14)
+    np.testing.assert_allclose(free, stored, rtol=0, atol=1e-14)
+
+
+def test_matrix_free_float32_keeps_its_precision_on_wide_detectors():
+    # Positions are split into whole bins and fractions before rounding to
+    # the input's precision, so a detector 20001 bins wide (centre at bin
+    # 10000, where float32 spacing is 1e-3) still gives float32 results within
+    # float32 rounding of float64 ones; a position computed in float32 would
+    # move weights by about 1e-3.
+    op = ParallelProjection((5, 4), [3.0, 37.0, 101.0, 163.0], n_detectors=20001, storage="matrix-free")
+    x = np.random.default_rng(4).random((5, 4))
+    y = np.random.default_rng(5).random(op.out_shape)
+    np.testing.assert_allclose(op.forward(x.astype(np.float32)), op.forward(x), rtol=0, atol=3e-6)
+    np.testing.assert_allclose(op.adjoint(y.astype(np.float32)), op.adjoint(y), rtol=3e-6)
+
+
+def test_storage_rule_and_forcing():
+    from pnpguard.operators._projection import MATRIX_BYTES_LIMIT, matrix_bytes
+
+    small = ParallelProjection((16, 16), np.arange(0.0, 180.0, 10.0))
+    assert small.storage == "matrix" and small.nnz > 0
+    assert matrix_bytes((16, 16), 18) <= MATRIX_BYTES_LIMIT
+    # The documented rule: 55 bytes per pixel-angle pair against 1 GiB.
+    assert matrix_bytes((256, 256), 180) == 55 * 256 * 256 * 180 <= MATRIX_BYTES_LIMIT
+    assert matrix_bytes((256, 256), 360) > MATRIX_BYTES_LIMIT
+    assert ParallelProjection((512, 512), np.arange(360) * 0.5).storage == "matrix-free"
+    # A 1024 x 1024 scan with 720 angles is matrix-free and costs nothing to set up.
+    large = ParallelProjection((1024, 1024), np.arange(720) * 0.25)
+    assert large.storage == "matrix-free" and large.nnz is None
+    assert "matrix-free" in repr(large)
+    forced = ParallelProjection((16, 16), np.arange(0.0, 180.0, 10.0), storage="matrix-free")
+    assert forced.storage == "matrix-free" and forced.nnz is None
+    x = np.random.default_rng(6).random((16, 16))
+    np.testing.assert_allclose(forced.forward(x), small.forward(x), rtol=1e-13, atol=1e-14)
+
+
+@pytest.mark.parametrize("storage", PATHS)
+def test_adjoint_matrix_is_exact_transpose(storage):
     # The matrix of the adjoint equals the transposed matrix of the forward map
     # (numpy transpose of the explicitly assembled matrices).
-    op = ParallelProjection((7, 9), [0.0, 33.0, 90.0, 141.5], n_detectors=10)
+    op = ParallelProjection((7, 9), [0.0, 33.0, 90.0, 141.5], n_detectors=10, storage=storage)
     forward = dense_matrix(op)
     np.testing.assert_allclose(dense_adjoint(op), forward.T, rtol=0, atol=1e-15)
 
 
-def test_compositions_and_scaling():
+@pytest.mark.parametrize("storage", PATHS)
+def test_compositions_and_scaling(storage):
     # Dot test (SciPy tests/test_interface.py) on derived operators: the
     # scaled operator and the normal operator P^T P, which is symmetric.
-    op = ParallelProjection((10, 8), np.linspace(0.0, 180.0, 5, endpoint=False))
+    op = ParallelProjection((10, 8), np.linspace(0.0, 180.0, 5, endpoint=False), storage=storage)
     rng = np.random.default_rng(3)
     x = rng.standard_normal((2, 1, 10, 8))
     z = rng.standard_normal((2, 1, 10, 8))
@@ -115,14 +203,15 @@ def test_compositions_and_scaling():
 
 
 # ------------------------------------------------------------------ geometry
-def test_single_pixel_footprint_matches_direct_integration():
+@pytest.mark.parametrize("storage", PATHS)
+def test_single_pixel_footprint_matches_direct_integration(storage):
     # Each entry is the bin average of the line integral of one pixel's
     # indicator; check against direct numerical integration of that
     # definition (midpoint rule on a fine grid over the pixel, each sample
     # carries area 1 / n^2 and lands in the bin containing its s).
     n_sub = 600
     angles = np.array([0.0, 12.0, 45.0, 77.0, 90.0, 135.0, 250.0])
-    op = ParallelProjection((5, 6), angles)
+    op = ParallelProjection((5, 6), angles, storage=storage)
     row, col = 1, 4
     image = np.zeros((5, 6))
     image[row, col] = 1.0
@@ -136,7 +225,8 @@ def test_single_pixel_footprint_matches_direct_integration():
         np.testing.assert_allclose(got[i], expected / n_sub**2, atol=3e-3)
 
 
-def test_uniform_disk_matches_analytic_projection():
+@pytest.mark.parametrize("storage", PATHS)
+def test_uniform_disk_matches_analytic_projection(storage):
     # Kak & Slaney, Principles of Computerized Tomographic Imaging, ch. 3:
     # a disk of radius r and density 1 centred at (x0, y0) projects to
     # p(theta, s) = 2 sqrt(r^2 - (s - x0 cos theta - y0 sin theta)^2).
@@ -148,7 +238,7 @@ def test_uniform_disk_matches_analytic_projection():
     # gives 2.4 % error, a flipped axis or angle sign far more.
     n, r, x0, y0 = 64, 20.0, 5.3, -3.1
     angles = np.array([0.0, 17.0, 45.0, 90.0, 123.4, 200.0])
-    op = ParallelProjection((n, n), angles)
+    op = ParallelProjection((n, n), angles, storage=storage)
     got = op.forward(antialiased_disk(n, r, (x0, y0)))
     s = np.arange(op.n_detectors) - (op.n_detectors - 1) / 2
     theta = np.deg2rad(angles)[:, None]
@@ -168,17 +258,19 @@ def test_uniform_disk_matches_analytic_projection():
     assert np.abs(got - bin_average)[interior].max() < 0.01 * 2 * r
 
 
-def test_projection_conserves_mass():
+@pytest.mark.parametrize("storage", PATHS)
+def test_projection_conserves_mass(storage):
     # The integral of every projection equals the object's total mass (the
     # Fourier slice theorem at zero frequency, Kak & Slaney ch. 3); with the
     # default detector the whole image is seen at every angle.
     rng = np.random.default_rng(0)
     image = rng.random((13, 20))
-    op = ParallelProjection((13, 20), rng.uniform(-180, 360, size=9))
+    op = ParallelProjection((13, 20), rng.uniform(-180, 360, size=9), storage=storage)
     np.testing.assert_allclose(op.forward(image).sum(axis=1), image.sum(), rtol=1e-12)
 
 
-def test_matches_skimage_radon():
+@pytest.mark.parametrize("storage", PATHS)
+def test_matches_skimage_radon(storage):
     # skimage.transform.radon(image, theta, circle=True) as an outside
     # reference. Geometry differences, aligned before comparing: it returns
     # (n_detectors, n_angles) (transpose of ours); it rotates about pixel
@@ -190,7 +282,7 @@ def test_matches_skimage_radon():
     # pixel boxes over bins, hence a loose tolerance.
     n = 65
     angles = np.arange(0.0, 180.0, 7.5)
-    op = ParallelProjection((n, n), angles, n_detectors=n)
+    op = ParallelProjection((n, n), angles, n_detectors=n, storage=storage)
     phantom = resize(shepp_logan_phantom(), (n, n), anti_aliasing=True)
     asymmetric = np.zeros((n, n))
     asymmetric[10:20, 38:52] = 1.0
@@ -238,7 +330,8 @@ def test_fbp_shepp_logan_psnr(phantom_128, projector_128):
 
 
 @pytest.mark.parametrize("name", FILTERS)
-def test_fbp_matches_skimage_iradon(name):
+@pytest.mark.parametrize("storage", PATHS)
+def test_fbp_matches_skimage_iradon(name, storage):
     # skimage.transform.iradon(sinogram, theta, circle=True, filter_name=...)
     # on the same sinogram (odd N so both rotate about the same centre;
     # n_detectors = N as circle=True expects). The filters share the
@@ -247,7 +340,7 @@ def test_fbp_matches_skimage_iradon(name):
     # window differs by over 10 %.
     n = 127
     angles = np.arange(180.0)
-    op = ParallelProjection((n, n), angles, n_detectors=n)
+    op = ParallelProjection((n, n), angles, n_detectors=n, storage=storage)
     sinogram = op.forward(resize(shepp_logan_phantom(), (n, n), anti_aliasing=True))
     ours = filtered_backprojection(sinogram, op, filter=name)
     reference = iradon(sinogram.T, angles, circle=True, filter_name=name)
@@ -277,8 +370,9 @@ def test_fbp_cutoff_removes_high_frequencies(phantom_128, projector_128):
 
 # --------------------------------------------------------- kinds and batches
 @pytest.mark.parametrize("dtype", [np.float32, np.float64])
-def test_numpy_kind_and_dtype_preserved(dtype):
-    op = ParallelProjection((9, 11), [0.0, 60.0, 120.0])
+@pytest.mark.parametrize("storage", PATHS)
+def test_numpy_kind_and_dtype_preserved(dtype, storage):
+    op = ParallelProjection((9, 11), [0.0, 60.0, 120.0], storage=storage)
     x = np.random.default_rng(1).random((9, 11)).astype(dtype)
     before = x.copy()
     y = op.forward(x)
@@ -290,8 +384,9 @@ def test_numpy_kind_and_dtype_preserved(dtype):
     np.testing.assert_array_equal(x, before)
 
 
-def test_torch_float32_close_to_float64():
-    op = ParallelProjection((16, 16), np.linspace(0, 180, 12, endpoint=False))
+@pytest.mark.parametrize("storage", PATHS)
+def test_torch_float32_close_to_float64(storage):
+    op = ParallelProjection((16, 16), np.linspace(0, 180, 12, endpoint=False), storage=storage)
     x = torch.rand(2, 3, 16, 16, generator=torch.Generator().manual_seed(0), dtype=torch.float64)
     x32 = x.float()
     before = x32.clone()
@@ -308,8 +403,9 @@ def test_torch_float32_close_to_float64():
     torch.testing.assert_close(x32, before, rtol=0, atol=0)
 
 
-def test_batch_equals_images_one_by_one():
-    op = ParallelProjection((10, 12), [5.0, 50.0, 95.0, 140.0])
+@pytest.mark.parametrize("storage", PATHS)
+def test_batch_equals_images_one_by_one(storage):
+    op = ParallelProjection((10, 12), [5.0, 50.0, 95.0, 140.0], storage=storage)
     rng = np.random.default_rng(2)
     batch = rng.random((2, 3, 10, 12))
     sinograms = op.forward(batch)
@@ -326,9 +422,10 @@ def test_batch_equals_images_one_by_one():
 
 
 # --------------------------------------------------------------------- norms
-def test_norm_matches_svd():
+@pytest.mark.parametrize("storage", PATHS)
+def test_norm_matches_svd(storage):
     # numpy.linalg.svd of the assembled matrix as the reference.
-    op = ParallelProjection((12, 12), np.linspace(0.0, 180.0, 7, endpoint=False))
+    op = ParallelProjection((12, 12), np.linspace(0.0, 180.0, 7, endpoint=False), storage=storage)
     matrix = dense_matrix(op)
     singular_values = np.linalg.svd(matrix, compute_uv=False)
     largest = singular_values[0]
@@ -348,8 +445,9 @@ def test_norm_matches_svd():
     assert np.linalg.matrix_rank(matrix) < 144
 
 
-def test_smallest_singular_value_unknown_when_overdetermined():
-    op = ParallelProjection((6, 6), np.linspace(0.0, 180.0, 12, endpoint=False))
+@pytest.mark.parametrize("storage", PATHS)
+def test_smallest_singular_value_unknown_when_overdetermined(storage):
+    op = ParallelProjection((6, 6), np.linspace(0.0, 180.0, 12, endpoint=False), storage=storage)
     assert op.out_shape[0] * op.out_shape[1] >= 36
     assert op.smallest_singular_value() is None
 
@@ -379,10 +477,12 @@ def test_default_detector_count_and_repr():
         ({"n_detectors": True}, TypeError, "`n_detectors` must be a positive integer"),
         ({"shape": (0, 4)}, ValueError, "`shape` must be a pair of positive integers"),
         ({"shape": (4, 4, 4)}, ValueError, "`shape` must be a pair of positive integers"),
+        ({"storage": "sparse"}, ValueError, "unknown `storage` 'sparse'; valid: 'auto', 'matrix'"),
+        ({"storage": None}, ValueError, "unknown `storage` None"),
     ],
 )
 def test_constructor_errors(kwargs, error, words):
-    arguments = {"shape": (8, 8), "angles": [0.0, 45.0], "n_detectors": None, **kwargs}
+    arguments = {"shape": (8, 8), "angles": [0.0, 45.0], "n_detectors": None, "storage": "auto", **kwargs}
     with pytest.raises(error, match=words.replace("(", r"\(")):
         ParallelProjection(**arguments)
 
