@@ -66,6 +66,22 @@ class _Parser(argparse.ArgumentParser):
 
 
 # ------------------------------------------------------------------- helpers
+
+def _task_problem(task_name: str, image_path: str) -> tuple[Any, Any]:
+    """The task named on the command line and its problem built on the image file."""
+    from .bench import get_task
+
+    try:
+        task = get_task(task_name)
+    except ValueError as error:
+        raise UsageError(str(error)) from None
+    image = _load_image(image_path)
+    try:
+        problem = task.problem(image.shape, image=image)
+    except ValueError as error:
+        raise UsageError(f"task {task.name!r} cannot use this image: {error}") from None
+    return task, problem
+
 def _load_image(path: str) -> np.ndarray:
     """A grey float64 image from ``.npy`` or any format scikit-image reads."""
     file = Path(path)
@@ -257,19 +273,11 @@ def _demo(args: argparse.Namespace) -> int:
 
 def _check(args: argparse.Namespace) -> int:
     from ._threads import torch_threads
-    from .bench import CAUTION, denoiser_names, get_denoiser, get_task
+    from .bench import CAUTION, denoiser_names, get_denoiser
     from .check import check_denoiser
     from .guarantee import Refused, admissible
 
-    try:
-        task = get_task(args.task)
-    except ValueError as error:
-        raise UsageError(str(error)) from None
-    image = _load_image(args.image)
-    try:
-        problem = task.problem(image.shape, image=image)
-    except ValueError as error:
-        raise UsageError(f"task {task.name!r} cannot use this image: {error}") from None
+    task, problem = _task_problem(args.task, args.image)
     user = ":" in args.denoiser
     if user:
         denoiser = _user_denoiser(args.denoiser, args.strength)
@@ -283,7 +291,7 @@ def _check(args: argparse.Namespace) -> int:
         strength, how = _strength_for(args.denoiser, task.name, args.strength)
         denoiser = get_denoiser(args.denoiser).make(strength, problem.shape)
         how = f"strength {strength:g} ({how})"
-    print(f"image {args.image}: {image.shape[0]}x{image.shape[1]}, task {task.name} ({task.family}), "
+    print(f"image {args.image}: {problem.shape[0]}x{problem.shape[1]}, task {task.name} ({task.family}), "
           f"noise {100 * task.noise:g} % of the data peak (sigma = {problem.sigma:.4g})")
     print(f"denoiser {denoiser.name}: {how}")
     print()
@@ -374,7 +382,7 @@ def _benchmark(args: argparse.Namespace) -> int:
 
 
 def _sweep(args: argparse.Namespace) -> int:
-    from .bench import denoiser_names, get_denoiser, get_task
+    from .bench import denoiser_names, get_denoiser
     from .strength import sweep_check
 
     if args.denoiser not in denoiser_names():
@@ -382,15 +390,7 @@ def _sweep(args: argparse.Namespace) -> int:
             get_denoiser(args.denoiser)
         except ValueError as error:
             raise UsageError(str(error)) from None
-    try:
-        task = get_task(args.task)
-    except ValueError as error:
-        raise UsageError(str(error)) from None
-    image = _load_image(args.image)
-    try:
-        problem = task.problem(image.shape, image=image)
-    except ValueError as error:
-        raise UsageError(f"task {task.name!r} cannot use this image: {error}") from None
+    task, problem = _task_problem(args.task, args.image)
     entry = get_denoiser(args.denoiser)
     if args.strengths:
         strengths = args.strengths
