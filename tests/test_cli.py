@@ -297,3 +297,11 @@ def test_import_pnpguard_loads_the_api_on_first_use():
     done = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, timeout=300, check=False)
     assert done.returncode == 0, done.stderr
     assert done.stdout.split() == ["False", "True", "True", "True"]
+
+
+def test_the_stored_list_tables_match_the_definitions():
+    # `pnpguard list` prints tables stored in catalogue.json (no torch import); they must be
+    # what the task, algorithm, route and denoiser definitions produce now.
+    from pnpguard._catalogue import live_catalogue, read_catalogue
+
+    assert read_catalogue() == live_catalogue(), "run `python -m pnpguard._catalogue` to rewrite catalogue.json"

@@ -487,33 +487,15 @@ def _list(args: argparse.Namespace) -> int:
 
         print("\n".join(phantoms.phantom_names()))
         return 0
-    from .bench import get_suite, get_task, shipped_denoisers, suite_names, task_names
+    from ._catalogue import ALGORITHM_COLUMNS, TASK_COLUMNS, read_catalogue
 
-    if args.what == "suites":
-        for name in suite_names():
-            suite = get_suite(name)
-            print(f"{name}: {len(suite.tasks)} tasks at {suite.shape[0]}x{suite.shape[1]}, "
-                  f"max_iter {suite.max_iter}: {', '.join(t.name for t in suite.tasks)}")
-    elif args.what == "tasks":
-        rows = []
-        for name in task_names():
-            task = get_task(name)
-            noise = f"{100 * task.noise:g} %"
-            rows.append((name, task.family, task.model.summary(), noise, task.phantom))
-        print(_table(("task", "family", "forward model", "noise (of peak)", "phantom"), rows))
+    catalogue = read_catalogue()  # the tables, stored so that listing imports no torch
+    if args.what == "tasks":
+        print(_table(TASK_COLUMNS, catalogue["tasks"]))
     elif args.what == "algorithms":
-        from .guarantee import ROUTES
-        from .splitting import ALGORITHMS
-
-        rows = [
-            (record.name, record.short, record.step_name, record.variable,
-             ", ".join(route.name for route in ROUTES if record.name in route.algorithms))
-            for record in ALGORITHMS.values()
-        ]
-        print(_table(("algorithm", "short", "parameter", "monitored", "theorem routes"), rows))
+        print(_table(ALGORITHM_COLUMNS, catalogue["algorithms"]))
     else:
-        for entry in shipped_denoisers():
-            print(f"{entry.name}: {entry.description}; strength = {entry.strength}; {entry.structure}")
+        print("\n".join(catalogue[args.what]))
     return 0
 
 
