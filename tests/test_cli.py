@@ -305,3 +305,14 @@ def test_the_stored_list_tables_match_the_definitions():
     from pnpguard._catalogue import live_catalogue, read_catalogue
 
     assert read_catalogue() == live_catalogue(), "run `python -m pnpguard._catalogue` to rewrite catalogue.json"
+
+
+def test_benchmark_adds_the_strength_rule_column(tmp_path, capsys):
+    out = tmp_path / "rule.json"
+    assert main(["benchmark", "quick", "--tasks", "deblur-gaussian-1pct", "--size", "32", "--max-iter", "10",
+                 "--methods", "fb/tv", "--strength-rule", "discrepancy", "--no-images", "--no-progress",
+                 "-o", str(out)]) == 0
+    printed = capsys.readouterr().out
+    assert "fb/tv@discrepancy picks" in printed and "from the best strength it tried" in printed
+    methods = {r["method"] for r in json.loads(out.read_text())["results"]}
+    assert methods == {"fb/tv", "fb/tv@discrepancy"}

@@ -323,6 +323,7 @@ def _benchmark(args: argparse.Namespace) -> int:
         CAUTION,
         custom_suite,
         family_gaps,
+        rule_gaps,
         get_suite,
         load_tuned,
         ranking,
@@ -357,6 +358,7 @@ def _benchmark(args: argparse.Namespace) -> int:
             progress=sys.stderr.isatty() if args.progress is None else args.progress,
             workers=args.workers,
             scheduler=args.scheduler,
+            strength_rule=args.strength_rule,
         )
     except (ValueError, KeyError) as error:
         raise UsageError(str(error.args[0])) from None
@@ -374,6 +376,9 @@ def _benchmark(args: argparse.Namespace) -> int:
     for gap in family_gaps(document):
         print(f"  {gap.family}: best PnP - best baseline = {gap.mean_gap:+.2f} dB on average"
               f" ({'goal met' if gap.goal_met else 'goal of +1 dB not met'})")
+    for family, methods in rule_gaps(document).items():
+        for method, gap in methods.items():
+            print(f"  {family}: {method} picks {gap:+.2f} dB from the best strength it tried (mean)")
     npz = path.with_suffix(".npz")
     print(f"wrote {path}" + (f" and {npz}" if args.images and npz.is_file() else ""))
     if document.get("caution"):
@@ -735,6 +740,9 @@ def build_parser() -> argparse.ArgumentParser:
                        help="save truths, data, reconstructions and residual curves (.npz)")
     bench.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
                        help="progress bar on standard error (default: when it is a terminal)")
+    bench.add_argument("--strength-rule", choices=("discrepancy", "sure"), default=None,
+                       help="also run every PnP method at the strength this rule picks on the task's own "
+                       "data, without ground truth (named METHOD@RULE; slower: one run per strength tried)")
     _add_worker_options(bench)
     bench.set_defaults(run=_benchmark)
 

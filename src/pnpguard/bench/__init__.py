@@ -38,6 +38,7 @@ from ._report import (
     write_report,
 )
 from ._results import BenchmarkRun, load_arrays, load_results
+from ._rule_column import rule_gaps
 from ._runner import run_suite
 from ._tasks import (
     FAMILIES,
@@ -89,6 +90,7 @@ __all__ = [
     "markdown_report",
     "methods_for",
     "ranking",
+    "rule_gaps",
     "run_suite",
     "shipped_denoisers",
     "suite_names",

@@ -205,6 +205,28 @@ def markdown_report(document: dict[str, Any], figures: dict[str, list[str]] | No
         ]
         for method in pnp_methods:
             lines.append(f"| {method} | " + " | ".join(_guard_cell(index.get((t, method))) for t in tasks) + " |")
+    rule_records = [r for r in document["results"] if r.get("strength_rule")]
+    if rule_records:
+        lines += [
+            "",
+            "## Strength without ground truth",
+            "",
+            f"Each `METHOD@{settings.get('strength_rule')}` run took the strength its rule picked on the "
+            "task's own data. Oracle: the best PSNR among the strengths the rule tried, found with the "
+            "ground truth (evaluation only).",
+            "",
+            "| task | method | picked strength | oracle strength | PSNR at pick / oracle | gap (dB) |",
+            "|---|---|---|---|---|---|",
+        ]
+        for record in rule_records:
+            rule = record["strength_rule"]
+            numbers = (
+                f"{rule['picked_psnr']:.2f} / {rule['oracle_psnr']:.2f} | {rule['gap_to_oracle']:+.2f}"
+                if rule["gap_to_oracle"] is not None else "- | -"
+            )
+            picked = "none" if rule["strength"] is None else f"{rule['strength']:.4g}"
+            oracle = "none" if rule["oracle_strength"] is None else f"{rule['oracle_strength']:.4g}"
+            lines.append(f"| {record['task']} | {record['method']} | {picked} | {oracle} | {numbers} |")
     lines += ["", "## Time per task", "", "| task | seconds |", "|---|---|"]
     lines += [f"| {t['name']} | {t['seconds']:.1f} |" for t in document["tasks"]]
     if figures:

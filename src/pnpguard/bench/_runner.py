@@ -12,7 +12,7 @@ import numpy as np
 
 from .._caution import CAUTION
 from .._jobs import run_jobs
-from .._validation import positive_int, unknown_message
+from .._validation import choice, positive_int, unknown_message
 from ..metrics import psnr, ssim
 from ._methods import (
     DenoiserCache,
@@ -33,6 +33,7 @@ from ._results import (
     flag_summary,
     guarantee_summary,
 )
+from ._rule_column import RULES, RuleJob, rule_method_name, rule_summary, run_rule_job
 from ._tasks import DATA_RANGE, Suite, Task, get_suite
 from ._tuned import TunedParameters, load_tuned
 from ._tuning import tune_task
@@ -154,6 +155,26 @@ def run_job(job: SuiteJob) -> dict[str, Any]:
             "seconds": time.perf_counter() - begin}
 
 
+def _run_any(job: SuiteJob | RuleJob) -> dict[str, Any]:
+    """Run a suite job or a rule job (one function for the job runner)."""
+    if isinstance(job, RuleJob):
+        done = run_rule_job(job)
+        problem, outcome = done["problem"], done["outcome"]
+        name = rule_method_name(job.method, job.rule)
+        named = Method(name, "pnp", job.method.algorithm, job.method.denoiser)
+        if outcome is None:
+            record = _failed_record(job.task.name, named, "the rule found no admissible strength")
+            record["status"] = "refused"
+            record["message"] = "refused: " + done["choice"]["note"]
+            arrays = {}
+        else:
+            record = _record(job.task.name, named, outcome, problem.truth)
+            arrays = {} if outcome.x is None else {f"{job.task.name}/{name}": outcome.x}
+        record["strength_rule"] = rule_summary(done["choice"])
+        return {"records": [record], "arrays": arrays, "sigma": problem.sigma, "seconds": done["seconds"]}
+    return run_job(job)
+
+
 def _failed_record(task: str, method: Method, error: str) -> dict[str, Any]:
     """The record of a method whose job raised or whose worker died: status ``"error"``."""
     return {
@@ -176,6 +197,7 @@ def run_suite(
     progress: bool = False,
     workers: int | str | None = None,
     scheduler: str | Any | None = None,
+    strength_rule: str | None = None,
 ) -> BenchmarkRun:
     """Run every task of a suite with every applicable method.
 
@@ -210,6 +232,15 @@ def run_suite(
     scheduler : str or distributed.Client, optional
         Address of an existing dask.distributed scheduler (or a connected
         client) to run the jobs on; excludes ``workers``.
+    strength_rule : {"discrepancy", "sure"}, optional
+        Add the "no ground truth" column: every selected PnP method again,
+        named ``"<method>@<rule>"``, at the strength
+        :func:`pnpguard.choose_strength` picks on the task's own data by this
+        rule (over the range of the denoiser's tuning grid), run as the tuned
+        column is. Its record carries ``"strength_rule"``: the rule's table
+        and, for evaluation only, the oracle (the best PSNR among the
+        strengths the rule tried) and the pick's gap to it
+        (:func:`pnpguard.bench.rule_gaps` averages them per family).
 
     Returns
     -------
@@ -249,9 +280,13 @@ def run_suite(
              for task in untuned},
             how,
         )
-    jobs = _jobs(suite, selected, tuned, budget, seed)
+    jobs: list[SuiteJob | RuleJob] = list(_jobs(suite, selected, tuned, budget, seed))
+    if strength_rule is not None:
+        strength_rule = choice(strength_rule, "strength_rule", RULES)
+        jobs += [RuleJob(task, suite, method, strength_rule, budget, seed)
+                 for task in suite.tasks for method in selected[task.name] if method.kind == "pnp"]
     begin = time.perf_counter()
-    done = run_jobs(run_job, jobs, workers=workers, scheduler=scheduler, threads=threads,
+    done = run_jobs(_run_any, jobs, workers=workers, scheduler=scheduler, threads=threads,
                     progress=progress, description=f"suite {suite.name}")
     records, arrays = [], {}
     task_info: dict[str, dict[str, Any]] = {
@@ -261,7 +296,9 @@ def run_suite(
     for job, result in zip(jobs, done):
         info = task_info[job.task.name]
         if not result.ok:
-            records.extend(_failed_record(job.task.name, method, result.error) for method in job.methods)
+            failed = job.methods if isinstance(job, SuiteJob) else (
+                Method(rule_method_name(job.method, job.rule), "pnp", job.method.algorithm, job.method.denoiser),)
+            records.extend(_failed_record(job.task.name, method, result.error) for method in failed)
             continue
         records.extend(result.value["records"])
         arrays.update(result.value["arrays"])
@@ -282,6 +319,7 @@ def run_suite(
             "dtype": "float64",
             "tuned": tuned.provenance(),
             "workers": _workers_text(workers, scheduler),
+            "strength_rule": strength_rule,
         },
         "environment": environment(threads),
         "tasks": tasks,
