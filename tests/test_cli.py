@@ -314,5 +314,6 @@ def test_benchmark_adds_the_strength_rule_column(tmp_path, capsys):
                  "-o", str(out)]) == 0
     printed = capsys.readouterr().out
     assert "fb/tv@discrepancy picks" in printed and "from the best strength it tried" in printed
+    assert "nan" not in printed and "no gap (some task lacks a successful PnP or baseline run)" in printed
     methods = {r["method"] for r in json.loads(out.read_text())["results"]}
     assert methods == {"fb/tv", "fb/tv@discrepancy"}

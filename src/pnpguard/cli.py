@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import math
 import os
 import sys
 import warnings
@@ -374,6 +375,9 @@ def _benchmark(args: argparse.Namespace) -> int:
         top = ", ".join(f"{r['method']} {r['psnr']:.2f} dB" for r in ranked)
         print(f"  {task['name']}: {top}")
     for gap in family_gaps(document):
+        if math.isnan(gap.mean_gap):
+            print(f"  {gap.family}: no gap (some task lacks a successful PnP or baseline run)")
+            continue
         print(f"  {gap.family}: best PnP - best baseline = {gap.mean_gap:+.2f} dB on average"
               f" ({'goal met' if gap.goal_met else 'goal of +1 dB not met'})")
     for family, methods in rule_gaps(document).items():
