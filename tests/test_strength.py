@@ -110,6 +110,41 @@ def test_sure_on_a_mask_estimates_the_error_on_the_observed_pixels():
         assert row.value == pytest.approx(projected, abs=0.2 * noise**2)
 
 
+def test_generalised_sure_is_unbiased_for_a_linear_estimator_under_decimation():
+    # A = 2x2 box average + subsampling (a null space of 3/4 of the image). For the linear
+    # estimator x_hat(y) = (A^T A + lam I)^-1 A^T y the projected risk has the closed form
+    # E ||P (x_hat - x)||^2 = ||P (W A x - x)||^2 + s^2 tr(W^T P W), W = (A^T A + lam I)^-1 A^T,
+    # P = A^+ A (numpy.linalg.pinv); generalised SURE (Eldar 2009, eq. 24) estimates it up to the
+    # constant ||P x||^2, unbiasedly: the mean over noise draws must match within its standard error.
+    import torch
+    from pnpguard.strength._rules import SureProbe
+
+    truth = _picture("camera", side=16)
+    op = pg.Decimation(2, truth.shape)
+    n = truth.size
+    matrix = np.stack([np.asarray(op.forward(e.reshape(truth.shape))).ravel() for e in np.eye(n)], axis=1)
+    projection = np.linalg.pinv(matrix) @ matrix
+    noise, lam = 0.05, 0.05
+    solve = np.linalg.inv(matrix.T @ matrix + lam * np.eye(n)) @ matrix.T
+    x_vec = truth.ravel()
+    bias = projection @ (solve @ matrix @ x_vec - x_vec)
+    exact = (bias @ bias + noise**2 * np.trace(solve.T @ projection @ solve)) / n
+    constant = (projection @ x_vec) @ (projection @ x_vec) / n
+    rng = np.random.default_rng(5)
+    estimates = []
+    for draw in range(300):
+        data = matrix @ x_vec + noise * rng.standard_normal(matrix.shape[0])
+        fidelity = pg.LeastSquares(op, data.reshape(op.out_shape), sigma=noise)
+        probe = SureProbe.build(fidelity, noise, seed=draw)
+        x_hat = torch.as_tensor((solve @ data).reshape(truth.shape))
+        shifted = data + probe.delta * probe.probe.numpy().ravel()
+        x_shifted = torch.as_tensor((solve @ shifted).reshape(truth.shape))
+        estimates.append(probe.value(op, x_hat, x_shifted) + constant)
+    error = np.std(estimates) / np.sqrt(len(estimates))
+    assert abs(np.mean(estimates) - exact) < 4 * error, (np.mean(estimates), exact, error)
+    assert error < 0.2 * exact  # the test can tell a biased estimate from an unbiased one
+
+
 # ------------------------------------------------------------ sweep_check
 @pytest.fixture(scope="module")
 def fidelity16():
