@@ -12,6 +12,7 @@ Usage::
     python benchmarks/train_learned.py residual --threads 1
     python benchmarks/train_learned.py averaged --threads 1
     python benchmarks/train_learned.py gradient-step --threads 1
+    python benchmarks/train_learned.py gradient-step-lab --threads 1
 
 Every stage checkpoints its state every 250 steps beside its weights file; an
 interrupted run started again with the same command resumes where it stopped
@@ -40,6 +41,7 @@ from pnpguard.learned._data import (
     VALIDATION_IMAGES,
     bundled_image,
     default_training_images,
+    lab_frames,
 )
 from pnpguard.learned._denoisers import load_network
 from pnpguard.learned._evaluate import held_out_table
@@ -68,6 +70,18 @@ RUNS = {
         "stages": [
             {"steps": 14000, "batch_size": 16, "patch_size": 64, "low_contrast": 0.25, "learning_rate": 3e-4, "seed": 10},
             {"steps": 4000, "batch_size": 8, "patch_size": 96, "low_contrast": 0.25, "learning_rate": 1e-4, "seed": 11},
+        ],
+    },
+    # The general gradient-step network fine-tuned on the lab's kinds of frames as well
+    # (fresh draws of the phantom generators, seeds disjoint from the benchmark's).
+    "gradient-step-lab": {
+        "file": "gradient_step_lab.pt",
+        "architecture": "gradient-step",
+        "initial_weights": "gradient_step_cnn.pt",
+        "network": {},
+        "lab_frames_per_kind": 24,
+        "stages": [
+            {"steps": 6000, "batch_size": 16, "patch_size": 64, "low_contrast": 0.25, "learning_rate": 1e-4, "seed": 20},
         ],
     },
     "averaged": {
@@ -102,6 +116,9 @@ def main() -> None:
     torch.set_flush_denormal(True)
     run = RUNS[args.which]
     images = default_training_images()
+    lab_per_kind = run.get("lab_frames_per_kind", 0)
+    if lab_per_kind:
+        images += lab_frames(lab_per_kind)
     validation = [bundled_image(name) for name in VALIDATION_IMAGES]
     start = time.perf_counter()
     previous = WEIGHTS / run["initial_weights"] if "initial_weights" in run else None
@@ -156,7 +173,9 @@ def main() -> None:
         "wall_seconds_including_setup": round(wall, 1),
         "torch_threads": args.threads,
         "machine": f"{platform.machine()}, {torch.get_num_threads()} torch thread(s), torch {torch.__version__}",
-        "training_images": list(TRAINING_IMAGES) + ["12 synthetic frames (seed 0)"],
+        "training_images": list(TRAINING_IMAGES)
+        + ["12 synthetic frames (seed 0)"]
+        + ([f"{lab_per_kind} lab frames per phantom kind (128 x 128, seeds from 70000)"] if lab_per_kind else []),
         "validation_images": list(VALIDATION_IMAGES),
         "held_out_images": list(HELD_OUT_IMAGES),
         "validation_psnr_history": history,

@@ -26,7 +26,7 @@ from pnpguard.learned import (
 )
 from pnpguard.learned._architectures import BY_CLASS_NAME, BY_NAME
 from pnpguard.learned._averaged import dct_filters, reflected_shrink
-from pnpguard.learned._data import PatchSampler, bundled_image
+from pnpguard.learned._data import LAB_FRAME_FIRST_SEED, LAB_FRAME_KINDS, PatchSampler, bundled_image, lab_frames
 from pnpguard.learned._denoisers import AVERAGED_WEIGHTS, RESIDUAL_WEIGHTS, WEIGHTS_DIR
 from pnpguard.learned._evaluate import held_out_table, noisy_copy
 from pnpguard.learned._lipschitz import circular_conv, circular_conv_adjoint
@@ -72,6 +72,7 @@ def averagedness_excess(denoise, x: torch.Tensor, y: torch.Tensor, theta: float)
         (residual_cnn, "residual", {}),
         (averaged_cnn, "averaged", {"theta": 0.9}),
         (pg.learned.gradient_step_cnn, "gradient-step", {}),
+        (pg.learned.lab_gradient_step_cnn, "gradient-step-lab", {}),
     ],
 )
 def test_shipped_weights_reproduce_recorded_psnr(factory, key, options):
@@ -111,6 +112,25 @@ def test_held_out_images_never_in_training_record():
     for entry in RECORD.values():
         assert not set(entry["held_out_images"]) & set(entry["training_images"])
         assert not set(entry["validation_images"]) & set(entry["training_images"])
+
+
+def test_lab_training_frames_are_never_a_benchmark_or_tuning_draw():
+    # The lab network trains on fresh draws of the benchmark's phantom generators; a draw
+    # is fixed by (phantom, seed), so no task's benchmark or tuning seed may be reused.
+    from pnpguard.bench._tasks import TASKS
+
+    used = {(t.phantom, t.seed) for t in TASKS.values()} | {(t.tuning_phantom, t.tuning_seed) for t in TASKS.values()}
+    per_kind = 24  # benchmarks/train_learned.py, run "gradient-step-lab"
+    trained = {(kind, LAB_FRAME_FIRST_SEED + k) for kind in LAB_FRAME_KINDS for k in range(per_kind)}
+    assert not used & trained
+    assert {phantom for phantom, _ in used} <= set(LAB_FRAME_KINDS)  # the kinds the lab meets
+    frames = lab_frames(2, size=64)
+    assert len(frames) == 2 * len(LAB_FRAME_KINDS)
+    assert all(f.dtype == np.float32 and f.shape == (64, 64) and 0 <= f.min() and f.max() <= 1 for f in frames)
+    # Draws differ from each other (not one frame repeated).
+    assert not np.array_equal(frames[0], frames[1])
+    with pytest.raises(ValueError, match="per_kind"):
+        lab_frames(0)
 
 
 def test_weights_are_plain_tensors_and_files_with_objects_are_refused(tmp_path):

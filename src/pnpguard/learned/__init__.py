@@ -10,16 +10,21 @@
   torch network ``f(noisy, sigma)`` the same way. ``RESIDUAL_WEIGHTS`` and
   ``AVERAGED_WEIGHTS`` are the shipped files, a starting point for
   fine-tuning (``train_denoiser(..., initial_weights=RESIDUAL_WEIGHTS)``).
+- :func:`gradient_step_cnn`: ``D = I - grad g`` with a computable potential
+  ``g``; :func:`lab_gradient_step_cnn` is the same network fine-tuned on the
+  lab's kinds of frames as well.
 """
 
 from ._averaged import AveragedCNN, LayerBounds
 from ._denoisers import (
     AVERAGED_WEIGHTS,
+    GRADIENT_STEP_LAB_WEIGHTS,
     GRADIENT_STEP_WEIGHTS,
     RESIDUAL_WEIGHTS,
     LearnedDenoiser,
     averaged_cnn,
     gradient_step_cnn,
+    lab_gradient_step_cnn,
     load_denoiser,
     load_network,
     module_denoiser,
@@ -34,6 +39,7 @@ from ._training import TrainingReport, load_training_images, train_denoiser
 
 __all__ = [
     "AVERAGED_WEIGHTS",
+    "GRADIENT_STEP_LAB_WEIGHTS",
     "GRADIENT_STEP_WEIGHTS",
     "RESIDUAL_WEIGHTS",
     "AveragedCNN",
@@ -47,6 +53,7 @@ __all__ = [
     "circular_conv_norm",
     "conv_norm_bound",
     "gradient_step_cnn",
+    "lab_gradient_step_cnn",
     "load_denoiser",
     "load_network",
     "load_training_images",

@@ -158,6 +158,44 @@ def default_training_images(*, synthetic: int = 12, seed: int = 0) -> list[np.nd
     return images + synthetic_frames(synthetic, seed=seed)
 
 
+#: Phantom kinds of the lab's frames (:func:`pnpguard.phantoms.make_phantom`).
+LAB_FRAME_KINDS = ("cells", "piecewise_smooth", "random_ellipses", "porous_disk")
+#: First seed of the lab's training frames. The benchmark tasks use seeds below
+#: 2000 (benchmark and tuning draws), so training frames never repeat them.
+LAB_FRAME_FIRST_SEED = 70000
+
+
+def lab_frames(per_kind: int, size: int = 128) -> list[np.ndarray]:
+    """Training frames of the kinds the lab reconstructs, drawn from the phantom generators.
+
+    ``per_kind`` frames of each of :data:`LAB_FRAME_KINDS`, with seeds
+    ``LAB_FRAME_FIRST_SEED + k``: fresh draws of the same generators the
+    benchmark tasks use, never the benchmark's or the tuning's own draws (a
+    train/test split within one distribution, common practice).
+
+    Parameters
+    ----------
+    per_kind : int
+        Frames per kind, >= 1.
+    size : int, optional
+        Side of the square frames.
+
+    Returns
+    -------
+    list of numpy.ndarray
+        ``per_kind * 4`` float32 arrays of shape ``(size, size)`` in [0, 1].
+    """
+    from ..phantoms import make_phantom
+
+    if per_kind < 1:
+        raise ValueError(f"`per_kind` must be >= 1, got {per_kind!r}")
+    return [
+        np.clip(make_phantom(kind, (size, size), seed=LAB_FRAME_FIRST_SEED + k), 0.0, 1.0).astype(np.float32)
+        for kind in LAB_FRAME_KINDS
+        for k in range(per_kind)
+    ]
+
+
 class PatchSampler:
     """Draw batches of (clean patch, noise level) for denoiser training.
 

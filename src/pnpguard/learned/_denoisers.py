@@ -27,6 +27,8 @@ WEIGHTS_DIR = Path(__file__).resolve().parent / "weights"
 RESIDUAL_WEIGHTS = WEIGHTS_DIR / "residual_cnn.pt"
 AVERAGED_WEIGHTS = WEIGHTS_DIR / "averaged_cnn.pt"
 GRADIENT_STEP_WEIGHTS = WEIGHTS_DIR / "gradient_step_cnn.pt"
+#: The gradient-step network fine-tuned on the lab's kinds of frames as well.
+GRADIENT_STEP_LAB_WEIGHTS = WEIGHTS_DIR / "gradient_step_lab.pt"
 
 #: Architectures that predict the noise and carry no facts.
 _RESIDUAL_FAMILY = ("MultiscaleResidualCNN", "ResidualCNN")
@@ -417,6 +419,39 @@ def gradient_step_cnn(
        for convergent plug-and-play", ICLR 2022. arXiv:2110.03220
     """
     path = Path(weights) if weights is not None else GRADIENT_STEP_WEIGHTS
+    return _gradient_step_from(path, sigma, weight, "gradient-step CNN")
+
+
+def lab_gradient_step_cnn(sigma: float, *, weight: float = 1.0) -> GradientStepDenoiser:
+    r"""The shipped gradient-step denoiser fine-tuned on the lab's kinds of frames.
+
+    The network of :func:`gradient_step_cnn`, trained further on the same
+    pictures plus fresh draws of the phantom generators the lab's tasks use
+    (cells, piecewise-smooth frames, ellipses, porous disks; seeds disjoint
+    from every benchmark draw, see ``benchmarks/train_learned.py``). It is a
+    worked example of fine-tuning a prior on one's own kind of frames; the
+    structure ``D = I - grad g`` and the potential route are the same.
+
+    Parameters
+    ----------
+    sigma : float
+        Noise level in intensity units, within the trained range.
+    weight : float, optional
+        ``lambda`` in ``D = I - lambda grad g`` (default 1).
+
+    Returns
+    -------
+    GradientStepDenoiser
+
+    References
+    ----------
+    .. [1] S. Hurault, A. Leclaire and N. Papadakis, "Gradient step denoiser
+       for convergent plug-and-play", ICLR 2022. arXiv:2110.03220
+    """
+    return _gradient_step_from(GRADIENT_STEP_LAB_WEIGHTS, sigma, weight, "gradient-step CNN (lab frames)")
+
+
+def _gradient_step_from(path: Path, sigma: float, weight: float, name: str) -> GradientStepDenoiser:
     model, training = _load(path, ("GradientStepNetwork",))
     sigma = _check_trained_sigma(sigma, training)
     source = (
@@ -425,7 +460,7 @@ def gradient_step_cnn(
     )
     denoiser = GradientStepDenoiser(
         ModulePotential(model, sigma, _network_potential),
-        name="gradient-step CNN" if weight == 1.0 else f"gradient-step CNN (weight={weight:g})",
+        name=name if weight == 1.0 else f"{name} (weight={weight:g})",
         sigma=sigma,
         weight=weight,
         source=source,
