@@ -20,7 +20,7 @@ from ..denoisers import (
     TotalVariation,
     WaveletShrinkage,
 )
-from ..learned import averaged_cnn, gradient_step_cnn, residual_cnn
+from ..learned import averaged_cnn, gradient_step_cnn, lab_gradient_step_cnn, residual_cnn
 
 Shape = tuple[int, int]
 
@@ -87,6 +87,12 @@ def _gradient_step(strength: float, shape: Shape) -> Denoiser:
     1602-1614, for Tweedie's formula; the scaling is our reading of it).
     """
     return gradient_step_cnn(strength, weight=1.0 / strength**2)
+
+
+def _lab_gradient_step(strength: float, shape: Shape) -> Denoiser:
+    """The gradient-step network fine-tuned on the lab's frames, weight ``1 / strength^2``
+    (as :func:`_gradient_step`)."""
+    return lab_gradient_step_cnn(strength, weight=1.0 / strength**2)
 
 
 _REGISTRY: dict[str, ShippedDenoiser] = {
@@ -164,6 +170,17 @@ _REGISTRY: dict[str, ShippedDenoiser] = {
             _NOISE_GRID,
             "black box",
             _gradient_step,
+            first_phase=0.15,
+        ),
+        ShippedDenoiser(
+            "gradient-step-lab",
+            "the gradient-step network fine-tuned on the lab's kinds of frames as well (fresh phantom "
+            "draws, seeds disjoint from the benchmark's; weight 1 / strength^2)",
+            "noise level",
+            0.04,
+            _NOISE_GRID,
+            "black box",
+            _lab_gradient_step,
             first_phase=0.15,
         ),
     )
