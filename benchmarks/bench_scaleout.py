@@ -55,6 +55,15 @@ def main() -> None:
     print(f"suite {args.suite}: serial {serial_seconds:.1f} s, {args.workers} workers {spread_seconds:.1f} s "
           f"(incl. cluster start), ratio {serial_seconds / spread_seconds:.2f}; identical records: {same}")
 
+    # Where the time goes: the jobs' own time (measured inside each job) against the wall time.
+    # Jobs slower on the workers than serially point at the machine (cores that slow each
+    # other down); a wall time well above total / workers points at scheduling and start-up.
+    spread_costs = _job_costs(spread)
+    serial_total, spread_total = sum(_job_costs(serial).values()), sum(spread_costs.values())
+    print(f"jobs' own time: serial {serial_total:.1f} s, on the workers {spread_total:.1f} s "
+          f"(x{spread_total / serial_total:.2f}); wall time on {args.workers} workers {spread_seconds:.1f} s "
+          f"against {spread_total / args.workers:.1f} s of jobs per worker")
+
     costs = _job_costs(serial)
     total, longest = sum(costs.values()), max(costs.values())
     print(f"\n{len(costs)} jobs, total {total:.1f} s, longest {longest:.1f} s (serial run's timings)")

@@ -46,6 +46,10 @@ def _die_once(job: tuple[str, int]) -> int:
     return value * value
 
 
+def _environment(name: str) -> str | None:
+    return os.environ.get(name)
+
+
 def _always_die(value: int) -> int:
     if value == 1:
         os.kill(os.getpid(), signal.SIGKILL)
@@ -202,3 +206,13 @@ def test_strength_choice_and_sweep_on_two_workers_equal_the_serial_runs(client):
     sweeps = [pg.sweep_check(relaxed, fidelity, [0.5, 1.0, 2.0], algorithms=["fb"], scheduler=where)
               for where in (None, client)]
     assert sweeps[0].as_dict() == sweeps[1].as_dict()
+
+
+def test_local_workers_keep_the_default_memory_trimming_and_one_thread_per_library():
+    # dask.distributed's nanny sets MALLOC_TRIM_THRESHOLD_=65536 in new workers (its default
+    # "distributed.nanny.pre-spawn-environ"), which doubled the time of reconstruction jobs;
+    # the local cluster leaves it out and keeps the single-threaded math libraries.
+    assert dask.config.get("distributed.nanny.pre-spawn-environ").get("MALLOC_TRIM_THRESHOLD_") is not None
+    names = ["MALLOC_TRIM_THRESHOLD_", "OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS"]
+    seen = [result.value for result in run_jobs(_environment, names, workers=1)]
+    assert seen == [os.environ.get("MALLOC_TRIM_THRESHOLD_"), "1", "1"]
