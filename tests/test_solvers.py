@@ -388,7 +388,8 @@ def test_inexact_tv_prox_reaches_the_exact_minimiser(accelerate):
     assert np.linalg.norm(fixed.x - exact) / np.linalg.norm(exact) > 3 * error
 
 
-def test_an_optimistic_estimate_is_caught_by_the_monitor_with_a_witness():
+def _optimistic_estimate():
+    """A blur problem, a linear filter with theta = 0.9 in truth, and a report claiming 0.3."""
     op, _, y = _blur_problem()
     fidelity = pg.LeastSquares(op, y, sigma=0.2)
     denoiser = _LinearFilter(0.225)  # spectrum [-0.8, 1]: theta = 0.9 in truth
@@ -396,6 +397,11 @@ def test_an_optimistic_estimate_is_caught_by_the_monitor_with_a_witness():
         denoiser=denoiser.name, theta=0.3, lipschitz=1.0, residual_lipschitz=0.6,
         verdict="estimated", refuted=None, witnesses={}, calls=0, seconds=0.0, method="a lucky search",
     )
+    return fidelity, denoiser, optimistic
+
+
+def test_an_optimistic_estimate_is_caught_by_the_monitor_with_a_witness():
+    fidelity, denoiser, optimistic = _optimistic_estimate()
     result = pg.forward_backward(fidelity, denoiser, report=optimistic, x0=RNG.standard_normal(SHAPE), max_iter=50)
     broken = [flag for flag in result.flags if flag.kind == "assumption_broken"]
     assert broken and broken[0].value > result.guarantee.constant
@@ -559,13 +565,7 @@ def test_threads_option_sets_torch_threads_for_the_run_and_restores_them():
 
 
 def test_an_accelerated_run_still_catches_an_optimistic_estimate_with_reproducible_witnesses():
-    op, _, y = _blur_problem()
-    fidelity = pg.LeastSquares(op, y, sigma=0.2)
-    denoiser = _LinearFilter(0.225)  # spectrum [-0.8, 1]: theta = 0.9 in truth
-    optimistic = pg.CheckReport(
-        denoiser=denoiser.name, theta=0.3, lipschitz=1.0, residual_lipschitz=0.6,
-        verdict="estimated", refuted=None, witnesses={}, calls=0, seconds=0.0, method="a lucky search",
-    )
+    fidelity, denoiser, optimistic = _optimistic_estimate()
     result = pg.forward_backward(
         fidelity, denoiser, report=optimistic, x0=RNG.standard_normal(SHAPE), max_iter=50, accelerate=True
     )

@@ -239,6 +239,12 @@ def _workers(text: str) -> int | str:
     return _integer(1, expected="a positive integer or 'auto'")(text)
 
 
+def _add_progress_option(verb: argparse.ArgumentParser) -> None:
+    """``--progress`` / ``--no-progress``: a progress bar on standard error (default: on a terminal)."""
+    verb.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
+                      help="progress bar on standard error (default: when it is a terminal)")
+
+
 def _add_worker_options(verb: argparse.ArgumentParser) -> None:
     """``--workers`` / ``--scheduler``: where a verb's independent jobs run (default: serially)."""
     where = verb.add_mutually_exclusive_group()
@@ -742,8 +748,7 @@ def build_parser() -> argparse.ArgumentParser:
     bench.add_argument("--tuned", default=None, help="tuned-parameter file (default: the shipped one)")
     bench.add_argument("--images", action=argparse.BooleanOptionalAction, default=True,
                        help="save truths, data, reconstructions and residual curves (.npz)")
-    bench.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
-                       help="progress bar on standard error (default: when it is a terminal)")
+    _add_progress_option(bench)
     bench.add_argument("--strength-rule", choices=("discrepancy", "sure"), default=None,
                        help="also run every PnP method at the strength this rule picks on the task's own "
                        "data, without ground truth (named METHOD@RULE; slower: one run per strength tried)")
@@ -776,8 +781,7 @@ def build_parser() -> argparse.ArgumentParser:
                        help="safety margin on estimated constants (default: 0.05)")
     sweep.add_argument("--output", "-o", default=None, help="JSON file (default: sweep-<denoiser>.json)")
     sweep.add_argument("--figure", default=None, help="also write the figure (PNG) here")
-    sweep.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
-                       help="progress bar on standard error (default: when it is a terminal)")
+    _add_progress_option(sweep)
     _add_worker_options(sweep)
     sweep.set_defaults(run=_sweep)
 
@@ -860,8 +864,7 @@ def build_parser() -> argparse.ArgumentParser:
     recover.add_argument("--seed", type=_seed, default=0, help="seed of the check's search (default: 0)")
     recover.add_argument("--margin", type=_fraction, default=0.05,
                          help="relative inflation of estimated constants, in [0, 1) (default: %(default)s)")
-    recover.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
-                         help="progress bar on standard error (default: when it is a terminal)")
+    _add_progress_option(recover)
     recover.set_defaults(run=_recover)
 
     _add_list(verbs)

@@ -182,6 +182,17 @@ class DenoiserCache:
         return denoiser, report, seconds
 
 
+def starts_interpolated(method: Method, problem: Problem) -> bool:
+    """Whether a PnP run starts from the interpolation of the missing pixels.
+
+    A descent on a nonconvex objective (the potential route) from the
+    zero-filled start barely moves the missing pixels of a mask, so such runs
+    start from their interpolation (common practice); the guarantee covers the
+    run from there.
+    """
+    return algorithm(method.algorithm).watches == "objective" and isinstance(problem.op, PixelMask)
+
+
 def run_pnp(
     method: Method,
     problem: Problem,
@@ -202,10 +213,7 @@ def run_pnp(
     options: dict[str, Any] = {}
     first_phase = get_denoiser(method.denoiser).first_phase
     try:
-        if algorithm(method.algorithm).watches == "objective" and isinstance(problem.op, PixelMask):
-            # A descent on a nonconvex objective from the zero-filled start barely moves the
-            # missing pixels; start from their interpolation (common practice). The guarantee
-            # covers the run from there.
+        if starts_interpolated(method, problem):
             options["x0"] = interpolated_start(problem.fidelity)
             parameters["start"] = "interpolated"
         elif algorithm(method.algorithm).watches == "objective" and first_phase is not None and first_phase > strength:

@@ -19,11 +19,9 @@ from typing import Any
 
 import numpy as np
 
-from ..operators import PixelMask
-from ..splitting import algorithm
 from ..starts import interpolated_start
 from ..strength import choose_strength
-from ._methods import DenoiserCache, Method, run_pnp
+from ._methods import DenoiserCache, Method, run_pnp, starts_interpolated
 from ._registry import Shape, get_denoiser
 from ._tasks import DATA_RANGE, Suite, Task
 
@@ -84,8 +82,8 @@ def run_rule_job(job: RuleJob) -> dict[str, Any]:
     entry = get_denoiser(job.method.denoiser)
     options: dict[str, Any] = {"max_iter": job.suite.max_iter, "tol": job.suite.tol,
                                "check_budget": job.budget}
-    if algorithm(job.method.algorithm).watches == "objective" and isinstance(problem.op, PixelMask):
-        options["x0"] = interpolated_start(problem.fidelity)  # as in run_pnp
+    if starts_interpolated(job.method, problem):
+        options["x0"] = interpolated_start(problem.fidelity)
     choice = choose_strength(
         problem.fidelity,
         functools.partial(_build, entry.name, problem.shape),

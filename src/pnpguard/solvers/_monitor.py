@@ -169,6 +169,10 @@ class Monitor:
         self._previous_step = None
         self._previous_point = None
 
+    def _certified_factor(self) -> float:
+        """The Lipschitz factor the certificate promises: the contraction's constant, else 1."""
+        return self.constant if self.map_kind == "contraction" else 1.0
+
     def blow_up(self, iteration: int, candidate: torch.Tensor) -> tuple[Flag | None, float]:
         """Flag non-finite or runaway values in a candidate iterate; also return its norm."""
         size = norm(candidate)
@@ -252,7 +256,7 @@ class Monitor:
                         )
                     )
         else:
-            factor = self.constant if self.map_kind == "contraction" else 1.0
+            factor = self._certified_factor()
             if residual > factor * before + allowance:
                 flags.append(
                     self._flag(
@@ -304,7 +308,7 @@ class Monitor:
                     )
                 )
         elif self.map_kind is not None:
-            factor = self.constant if self.map_kind == "contraction" else 1.0
+            factor = self._certified_factor()
             if moved > factor * a_norm + allowance:
                 flags.append(
                     self._flag(
