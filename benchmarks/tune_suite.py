@@ -17,6 +17,7 @@ Usage::
     python benchmarks/tune_suite.py                       # every task, 64 x 64
     python benchmarks/tune_suite.py --tasks superres-x2   # update some tasks
     python benchmarks/tune_suite.py --denoisers nlm       # update some denoisers
+    python benchmarks/tune_suite.py --shape 128 128 --max-iter 300   # the full suite's size
 
 Existing entries of other tasks / denoisers are kept (``--fresh`` starts over);
 the file's ``runs`` list records every invocation (time, commit, what it tuned).
@@ -52,7 +53,11 @@ def main() -> None:
     parser.add_argument("--output", type=Path, default=SHIPPED_TUNED)
     parser.add_argument("--fresh", action="store_true", help="ignore the existing file")
     parser.add_argument("--threads", type=int, default=1)
+    parser.add_argument("--shape", type=int, nargs=2, default=SHAPE, metavar=("ROWS", "COLS"),
+                        help=f"image size of the tuning runs (default: {SHAPE[0]} {SHAPE[1]})")
+    parser.add_argument("--max-iter", type=int, default=MAX_ITER, help=f"iteration cap (default: {MAX_ITER})")
     args = parser.parse_args()
+    shape, max_iter = tuple(args.shape), args.max_iter
     torch.set_num_threads(args.threads)
     denoisers = list(denoiser_names()) if args.denoisers is None else args.denoisers
     for name in denoisers:
@@ -84,10 +89,10 @@ def main() -> None:
         created=created,
         git_commit=env["git_commit"],
         how=(
-            f"tuned at {SHAPE[0]}x{SHAPE[1]} on each task's tuning phantom and seed (not the "
+            f"tuned at {shape[0]}x{shape[1]} on each task's tuning phantom and seed (not the "
             f"benchmark's); PnP: denoiser strength on the registry grid (coarse pass + grid "
             f"neighbours), best of the guarded algorithms at the recommended step, max_iter "
-            f"{MAX_ITER}, tol {TOL:g}, check budget {CHECK_BUDGET}; baselines: exhaustive small "
+            f"{max_iter}, tol {TOL:g}, check budget {CHECK_BUDGET}; baselines: exhaustive small "
             "grids; criterion PSNR (data range 1)"
         ),
     )
@@ -98,10 +103,10 @@ def main() -> None:
         entry = data["tasks"].setdefault(name, {"denoisers": {}, "baselines": {}})
         print(f"{name} (tuning phantom {task.tuning_phantom}, seed {task.tuning_seed})", flush=True)
         fresh = tune_task(
-            task, shape=SHAPE, max_iter=MAX_ITER, tol=TOL, check_budget=CHECK_BUDGET,
+            task, shape=shape, max_iter=max_iter, tol=TOL, check_budget=CHECK_BUDGET,
             denoisers=denoisers, baselines=tune_baselines, say=lambda text: print(text, flush=True),
         )
-        entry.update(phantom=fresh["phantom"], seed=fresh["seed"], shape=fresh["shape"], max_iter=MAX_ITER)
+        entry.update(phantom=fresh["phantom"], seed=fresh["seed"], shape=fresh["shape"], max_iter=max_iter)
         entry["baselines"].update(fresh["baselines"])
         entry["denoisers"].update(fresh["denoisers"])
         print(f"  {time.perf_counter() - start:.1f} s", flush=True)

@@ -149,6 +149,43 @@ def test_matrix_free_float32_keeps_its_precision_on_wide_detectors():
     np.testing.assert_allclose(op.adjoint(y.astype(np.float32)), op.adjoint(y), rtol=3e-6)
 
 
+def test_matrix_free_kept_weights_give_the_recomputed_products():
+    # The weights a product computes are kept for the next products (within
+    # the cache budget); kept and recomputed weights must give the same
+    # numbers, in each precision and whatever torch's thread count (which
+    # sets the block size), and the budget's byte count must be the bytes
+    # actually kept.
+    from pnpguard.operators._footprint import FootprintKernel
+
+    angles = np.array([0.0, 17.0, 45.0, 90.0, 112.0, 135.0, 163.0, 180.0 - 17.0])
+    kept = FootprintKernel((23, 18), angles, 31)
+    recomputed = FootprintKernel((23, 18), angles, 31, weight_cache_bytes=0)
+    rng = np.random.default_rng(11)
+    for dtype in (torch.float64, torch.float32):
+        x = torch.from_numpy(rng.random((2, 23, 18))).to(dtype)
+        y = torch.from_numpy(rng.random((2, 8, 31))).to(dtype)
+        for _ in range(2):  # the first product computes and keeps, the second reuses
+            torch.testing.assert_close(kept.forward(x), recomputed.forward(x), rtol=0, atol=0)
+            torch.testing.assert_close(kept.adjoint(y), recomputed.adjoint(y), rtol=0, atol=0)
+    assert recomputed._kept == {}
+    assert len(kept._kept) == 2
+    for (dtype, _, _), groups in kept._kept.items():
+        held = sum(t.numel() * t.element_size() for blocks in groups for *_, weights in blocks for t in weights)
+        assert held == kept._kept_bytes(dtype)
+    threads = torch.get_num_threads()
+    try:
+        for count in (1, 2):  # two block sizes: an entry each, the same numbers
+            torch.set_num_threads(count)
+            torch.testing.assert_close(kept.forward(x), recomputed.forward(x), rtol=0, atol=0)
+        assert {size for _, _, size in kept._kept} == {1 << 17, (1 << 15) - 1}
+    finally:
+        torch.set_num_threads(threads)
+    # A budget below one precision's weights keeps nothing.
+    small = FootprintKernel((23, 18), angles, 31, weight_cache_bytes=kept._kept_bytes(torch.float32) - 1)
+    small.forward(x)
+    assert small._kept == {}
+
+
 def test_storage_rule_and_forcing():
     from pnpguard.operators._projection import MATRIX_BYTES_LIMIT, matrix_bytes
 

@@ -97,8 +97,10 @@ def test_a_stack_is_one_batch_with_one_check_and_matches_frame_by_frame(tmp_path
     tifffile.imwrite("stack.tif", (4095 * stack).round().astype(np.uint16), photometric="minisblack")  # 12-bit data in 16 bits
     np.save("psf.npy", PSF)
     calls = _count_checks(monkeypatch)
+    # Plain iterations: an accelerated run combines past steps of the whole batch, so its
+    # path (not its fixed point) differs from the frame's own.
     arguments = ["--psf", "psf.npy", "--sigma", str(SIGMA), "--range", "0", "4095", "--max-iter", "15",
-                 "--tol", "1e-12", "--no-progress"]
+                 "--tol", "1e-12", "--no-progress", "--accelerate", "off"]
     assert main(["recover", "stack.tif", *arguments]) == 0
     assert "stack: the 3 frames are reconstructed as one (N, 1, H, W) batch" in capsys.readouterr().out
     assert len(calls) == 1 and calls[0].shape == (SIDE, SIDE)  # one check, on one frame
@@ -111,6 +113,7 @@ def test_a_stack_is_one_batch_with_one_check_and_matches_frame_by_frame(tmp_path
     assert np.abs(alone - result[1].astype(int)).max() <= 1
     record = json.loads(Path("stack-recovered.json").read_text())
     assert record["inputs"]["data"]["range"] == [0.0, 4095.0] and record["inputs"]["data"]["layout"] == "stack"
+    assert record["parameters"]["accelerate"] == "off" and record["run"]["accelerated_steps"] == 0
 
 
 def test_colour_channels_in_one_batch_and_the_grey_level_note(tmp_path, monkeypatch, capsys):

@@ -66,6 +66,26 @@ def test_forward_backward_with_soft_thresholding_solves_the_lasso(accelerate):
     assert (result.accelerated > 0) == accelerate
 
 
+def test_default_acceleration_is_on_only_for_guarded_runs_with_an_exact_denoiser():
+    # accelerate="auto" (the default) accelerates where benchmarks/bench_anderson.py measured
+    # a gain with the same fixed point and no new flags: guarded fixed-point runs whose
+    # denoiser is exact. Inexact (iterative) proxes, unguarded runs and the descent scheme
+    # stay plain.
+    op, _, y = _blur_problem()
+    fidelity = pg.LeastSquares(op, y, sigma=0.5)
+    exact = pg.forward_backward(fidelity, _soft(0.02), max_iter=500, tol=1e-9)
+    assert exact.report.tolerance == 0 and exact.accelerated > 0
+    assert "accelerated run" in str(exact.guarantee)
+    plain = pg.forward_backward(fidelity, _soft(0.02), max_iter=500, tol=1e-9, accelerate=False)
+    assert plain.accelerated == 0 and plain.iterations > exact.iterations
+    assert_close(exact.x, plain.x, rtol=0, atol=1e-6, what="auto-accelerated vs plain fixed point")
+    assert pg.forward_backward(fidelity, _soft(0.02), max_iter=50, guard=False).accelerated == 0
+    inexact = pg.forward_backward(fidelity, pg.TotalVariation(weight=0.05), max_iter=50, tol=1e-6)
+    assert inexact.report.tolerance > 0 and inexact.accelerated == 0
+    with pytest.raises(TypeError, match="accelerate"):
+        pg.forward_backward(fidelity, _soft(0.02), accelerate="yes")
+
+
 @pytest.mark.parametrize("accelerate", [False, True])
 def test_linear_denoiser_fixed_point_matches_a_linear_solve(accelerate):
     op, _, y = _blur_problem()
@@ -108,7 +128,7 @@ def test_admm_iterates_are_douglas_rachford_iterates_under_the_change_of_variabl
     gamma = 1.0 / fidelity.lipschitz
     recorded = []
     pg.admm(
-        fidelity, denoiser, step=gamma, max_iter=15, tol=0,
+        fidelity, denoiser, step=gamma, max_iter=15, tol=0, accelerate=False,
         callback=lambda state: recorded.append(state.governing.clone()),
     )
     # Classical PnP-ADMM written out (Chan, Wang & Elgendy 2017, eq. (7)-(9)), from z0 = x0, u0 = 0.

@@ -189,6 +189,7 @@ def record(
         "run": {
             "converged": result.converged,
             "iterations": result.iterations,
+            "accelerated_steps": result.accelerated,
             "message": result.message,
             "relative_residual": finite_or_none(residuals[-1]) if len(residuals) else None,
             "seconds": result.seconds,

@@ -239,6 +239,10 @@ def _workers(text: str) -> int | str:
     return _integer(1, expected="a positive integer or 'auto'")(text)
 
 
+#: ``--accelerate`` choices and the solvers' ``accelerate`` values they stand for.
+ACCELERATE = {"auto": "auto", "on": True, "off": False}
+
+
 def _add_progress_option(verb: argparse.ArgumentParser) -> None:
     """``--progress`` / ``--no-progress``: a progress bar on standard error (default: on a terminal)."""
     verb.add_argument("--progress", action=argparse.BooleanOptionalAction, default=None,
@@ -601,12 +605,13 @@ def _recover(args: argparse.Namespace) -> int:
     print(f"{guarantee}\n")
     progress = sys.stderr.isatty() if args.progress is None else args.progress
     result = reconstruct(args.algorithm, fidelity, denoiser, report=report, max_iter=args.max_iter, tol=args.tol,
-                         margin=args.margin, seed=args.seed, progress=progress)
+                         margin=args.margin, seed=args.seed, progress=progress,
+                         accelerate=ACCELERATE[args.accelerate])
     print(result)
     values = rec.from_batch(result.x, data.layout)
     parameters = {"sigma": args.sigma, "denoiser": args.denoiser, "denoiser_strength": how,
                   "algorithm": args.algorithm, "max_iter": args.max_iter, "tol": args.tol,
-                  "budget": args.budget, "seed": args.seed, "margin": args.margin}
+                  "accelerate": args.accelerate, "budget": args.budget, "seed": args.seed, "margin": args.margin}
     written: dict[str, int] = {}
 
     def write_output(path: Path) -> None:
@@ -859,6 +864,9 @@ def build_parser() -> argparse.ArgumentParser:
     recover.add_argument("--max-iter", type=_positive_int, default=300, help="iteration cap (default: %(default)s)")
     recover.add_argument("--tol", type=_positive_float, default=1e-4,
                          help="relative fixed-point residual at which to stop (default: %(default)s)")
+    recover.add_argument("--accelerate", choices=tuple(ACCELERATE), default="auto",
+                         help="safeguarded Anderson acceleration: on, off, or auto (default: on for "
+                         "guarded fixed-point runs with an exact denoiser)")
     recover.add_argument("--budget", type=_integer(MIN_BUDGET), default=200,
                          help=f"denoiser calls for a black-box check, at least {MIN_BUDGET} (default: %(default)s)")
     recover.add_argument("--seed", type=_seed, default=0, help="seed of the check's search (default: 0)")

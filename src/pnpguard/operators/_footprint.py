@@ -30,6 +30,15 @@ BLOCK_PAIRS = 1 << 17
 SERIAL_BLOCK_PAIRS = (1 << 15) - 1
 
 
+#: The weights computed by a product are kept for the next ones while all kept
+#: weights (every precision together) take at most this many bytes. At 256 x 256
+#: with 180 angles they take 60 MB in float32 and 95 MB in float64, and a
+#: forward + adjoint then costs about two thirds of the time of one that
+#: recomputes them (``benchmarks/bench_projector_scale.py``); at 512 x 512 with
+#: 360 angles they would take 0.5-0.8 GB, so such scans recompute them.
+WEIGHT_CACHE_BYTES = 2**28
+
+
 def _block_pairs() -> int:
     """Pairs per block for torch's current thread count."""
     return BLOCK_PAIRS if torch.get_num_threads() == 1 else SERIAL_BLOCK_PAIRS
@@ -119,6 +128,9 @@ class FootprintKernel:
         Angles in degrees (validated by the caller).
     n_detectors : int
         Number of detector bins.
+    weight_cache_bytes : int, optional
+        Memory allowed for keeping computed weights between products (all
+        precisions together); 0 recomputes them every product.
 
     Notes
     -----
@@ -152,8 +164,17 @@ class FootprintKernel:
     quarter of its pairs or, without paired angles, of half.
     """
 
-    def __init__(self, shape: tuple[int, int], angles: np.ndarray, n_detectors: int):
+    def __init__(
+        self,
+        shape: tuple[int, int],
+        angles: np.ndarray,
+        n_detectors: int,
+        weight_cache_bytes: int = WEIGHT_CACHE_BYTES,
+    ):
         self.shape = shape
+        self.weight_cache_bytes = weight_cache_bytes
+        #: Kept blocks with their weights per (dtype, device, block size): a list per group.
+        self._kept: dict[tuple[torch.dtype, torch.device, int], list[list[tuple]]] = {}
         self.n_angles = angles.size
         self.n_detectors = n_detectors
         height, width = shape
@@ -278,6 +299,54 @@ class FootprintKernel:
         middle = torch.add(low, high, out=near).neg_().add_(1.0)
         return index, low, middle, high
 
+    def _kept_bytes(self, dtype: torch.dtype) -> int:
+        """Bytes that keeping every block's weights in ``dtype`` takes (int64 index + 3 weights)."""
+        per_pair = 8 + 3 * torch.empty((), dtype=dtype).element_size()
+        pairs = 0
+        for group in self.groups:
+            length = self.shape[0] if group.transposed else self.shape[1]
+            pairs += sum((a.stop - a.start) * (b.stop - b.start) * length for a, b, _ in self._blocks(group))
+        return pairs * per_pair
+
+    def _weighted_blocks(self, like: torch.Tensor, work: list[torch.Tensor]):
+        """Each group with an iterator over its blocks ``(angles, lines, mirrored, weights)``.
+
+        ``weights`` is ``(index, low, middle, high)`` of :meth:`_weights`. They
+        are the kept ones when this precision and device has them; otherwise
+        they are computed into ``work`` and, when :attr:`weight_cache_bytes`
+        allows, copied and kept once the whole product has gone through them.
+        Each block must be used before the next one is drawn.
+        """
+        # The block size is part of the key: it sets the blocks and the work buffers.
+        key = (like.dtype, like.device, _block_pairs())
+        kept = self._kept.get(key)
+        fresh: list[list[tuple]] | None = None
+        if kept is None:
+            used = sum(self._kept_bytes(dtype) for dtype, _, _ in self._kept)
+            if used + self._kept_bytes(like.dtype) <= self.weight_cache_bytes:
+                fresh = []
+        for number, group in enumerate(self.groups):
+            if kept is not None:
+                yield group, iter(kept[number])
+            else:
+                into = None if fresh is None else []
+                if fresh is not None:
+                    fresh.append(into)
+                yield group, self._computed_blocks(group, like, work, into)
+        if fresh is not None:
+            self._kept[key] = fresh
+
+    def _computed_blocks(
+        self, group: _Group, like: torch.Tensor, work: list[torch.Tensor], into: list | None
+    ):
+        """The group's blocks with freshly computed weights (copies appended to ``into`` if given)."""
+        for angles, lines, mirrored in self._blocks(group):
+            weights = self._weights(group, angles, lines, like, work)
+            if into is not None:
+                weights = tuple(t.clone() for t in weights)
+                into.append((angles, lines, mirrored, weights))
+            yield angles, lines, mirrored, weights
+
     def _mirrored_index(
         self, index: torch.Tensor, mirrored: int, work: list[torch.Tensor]
     ) -> torch.Tensor:
@@ -334,14 +403,13 @@ class FootprintKernel:
         slots = torch.zeros(count, self.n_angles * self.stride, dtype=x.dtype, device=x.device)
         work = self._work(x)
         product = work[2]
-        for group in self.groups:
+        for group, blocks in self._weighted_blocks(x, work):
             ordered = images.transpose(1, 2) if group.transposed else images
             variants = [
                 (offset * self.stride, _flipped(ordered, axes), mirrored)
                 for offset, axes, mirrored in self._variants(group)
             ]
-            for angles, lines, mirrored in self._blocks(group):
-                index, low, middle, high = self._weights(group, angles, lines, x, work)
+            for angles, lines, mirrored, (index, low, middle, high) in blocks:
                 reflected = self._mirrored_index(index, mirrored, work) if mirrored else None
                 base = (group.first + angles.start) * self.stride
                 span = (angles.stop - angles.start) * self.stride - 2
@@ -377,14 +445,13 @@ class FootprintKernel:
         images = y.new_zeros(count, height, width)
         work = self._work(y)
         gathered, accumulated = work[2], work[10]
-        for group in self.groups:
+        for group, blocks in self._weighted_blocks(y, work):
             lines, length = (width, height) if group.transposed else (height, width)
             variants = [
                 (offset * self.stride, axes, y.new_zeros(count, lines, length), mirrored)
                 for offset, axes, mirrored in self._variants(group)
             ]
-            for angles, block_lines, mirrored in self._blocks(group):
-                index, low, middle, high = self._weights(group, angles, block_lines, y, work)
+            for angles, block_lines, mirrored, (index, low, middle, high) in blocks:
                 reflected = self._mirrored_index(index, mirrored, work) if mirrored else None
                 base = (group.first + angles.start) * self.stride
                 span = (angles.stop - angles.start) * self.stride - 2

@@ -74,9 +74,13 @@ class RunOptions:
         Safety margin on estimated constants (default 0.05).
     seed : int, optional
         Seed of the check's search.
-    accelerate : bool, optional
+    accelerate : bool or "auto", optional
         Safeguarded type-I Anderson acceleration of the fixed-point iteration
-        (forward-backward, Douglas-Rachford, ADMM; default False). A candidate
+        (forward-backward, Douglas-Rachford, ADMM). ``"auto"`` (default)
+        accelerates guarded runs whose denoiser is exact (its check reports
+        no inexactness tolerance) and leaves the others plain: inexact,
+        iterative proxes such as TV gained nothing and stalled when
+        accelerated (``benchmarks/bench_anderson.py``). A candidate
         step is taken only when the safeguard holds (its fixed-point residual
         stays below a summable bound and its length is bounded by a multiple
         of the plain step's), otherwise the plain step, so the plain
@@ -110,7 +114,7 @@ class RunOptions:
     check_budget: int = DEFAULT_BUDGET
     margin: float = DEFAULT_MARGIN
     seed: int = 0
-    accelerate: bool = False
+    accelerate: bool | str = "auto"
     anderson_memory: int = DEFAULT_MEMORY
     threads: int | None = None
 
@@ -134,9 +138,11 @@ class RunOptions:
             set_(self, "policy", Policy())
         if not isinstance(self.policy, Policy):
             raise TypeError(f"`policy` must be a pnpguard Policy, got {type(self.policy).__name__}")
-        for name in ("guard", "progress", "accelerate"):
+        for name in ("guard", "progress"):
             if not isinstance(getattr(self, name), bool):
                 raise TypeError(f"`{name}` must be True or False, got {getattr(self, name)!r}")
+        if not (isinstance(self.accelerate, bool) or self.accelerate == "auto"):
+            raise TypeError(f"`accelerate` must be True, False or 'auto', got {self.accelerate!r}")
 
     @classmethod
     def from_keywords(cls, keywords: dict[str, Any]) -> RunOptions:
