@@ -28,8 +28,9 @@ STORAGE = ("auto", "matrix", "matrix-free")
 MATRIX_BYTES_PER_PAIR = 55
 
 #: ``storage="auto"`` stores the matrix when it takes at most this many bytes
-#: (its products are faster: the matrix-free ones take 2.3-3 times as long at
-#: 256 x 256 with 180 angles, ``benchmarks/bench_projector_scale.py``).
+#: (its products are faster: the matrix-free ones take 1.7 (float32) and 1.9
+#: (float64) times as long at 256 x 256 with 180 angles once their weights are
+#: kept, ``benchmarks/bench_projector_scale.py``).
 MATRIX_BYTES_LIMIT = 2**30
 
 
@@ -146,7 +147,9 @@ class ParallelProjection(LinearOperator):
         (fast products for small scans, memory and set-up time growing with
         ``H W n_angles``); ``"matrix-free"`` stores nothing and recomputes the
         same entries on every product, block by block over angles, in the
-        input's precision (memory of a few megabytes whatever the size).
+        input's precision (the weights computed by the first product are
+        kept when they fit 256 MiB, so small scans reuse them; larger ones
+        need a few megabytes of work space whatever the size).
         ``"auto"`` stores the matrix when :func:`matrix_bytes` is at most
         :data:`MATRIX_BYTES_LIMIT` (1 GiB: up to about 19.5 million
         pixel-angle pairs, e.g. 256 x 256 with 180 angles) and is matrix-free
@@ -197,9 +200,14 @@ class ParallelProjection(LinearOperator):
     256 x 256 pixels and 180 angles in both precisions), built once in a few
     seconds. With ``storage="matrix-free"`` each product recomputes the
     entries from the geometry (a scatter for the forward map, a gather with
-    the same weights for the adjoint); the two paths agree to rounding. At
-    256 x 256 with 180 angles a matrix-free forward + adjoint takes 2.3-3
-    times the stored product (one torch thread), with no set-up and no stored matrix; at
+    the same weights for the adjoint); the two paths agree to rounding. The
+    weights of a quarter of the pairs (the others follow by symmetry) are
+    kept after the first product in each precision while they fit
+    ``WEIGHT_CACHE_BYTES`` (256 MiB; 60 MB in float32 and 95 MB in float64 at
+    256 x 256 with 180 angles). There a matrix-free forward + adjoint takes
+    1.7 (float32) and 1.9 (float64) times the stored product (one torch
+    thread, quiet machine; 2.3-3 times when the weights are recomputed), with
+    no set-up and a fifth of the stored matrix's memory; at
     512 x 512 with 360 angles the whole process peaks at about 0.35 GB
     (the stored path: 7.8 GB) and a 1024 x 1024 scan with 720 angles is
     reconstructed in under 0.5 GB (``benchmarks/bench_projector_scale.py``).
@@ -207,7 +215,7 @@ class ParallelProjection(LinearOperator):
     product; with several torch threads it keeps each below torch's parallel
     grain (a parallel region waits for busy cores on a shared machine), which
     costs speed: beside other busy processes it measured 6-7 times the stored
-    product with 2 threads, 2.3-3 times with one.
+    product with 2 threads, 2.3-3 times with one (weights recomputed).
 
     Norm: the entries are nonnegative on both paths (the computed weights
     are clamped at 0 and the middle weight is at least 1/2), so
