@@ -232,6 +232,11 @@ class FootprintKernel:
                 order.extend(chosen)
                 if paired:
                     order.extend(second_of_pair[np.isin(first_of_pair, chosen)])
+        # Pairs whose weights a product computes: each group's angles on the first half of its lines.
+        self._weighted_pairs = sum(
+            group.count * (((width if group.transposed else height) + 1) // 2) * (height if group.transposed else width)
+            for group in self.groups
+        )
         self.order = np.array(order, dtype=np.int64)
         self.inverse_order = torch.from_numpy(np.argsort(self.order))
         self.order_tensor = torch.from_numpy(self.order)
@@ -301,12 +306,7 @@ class FootprintKernel:
 
     def _kept_bytes(self, dtype: torch.dtype) -> int:
         """Bytes that keeping every block's weights in ``dtype`` takes (int64 index + 3 weights)."""
-        per_pair = 8 + 3 * torch.empty((), dtype=dtype).element_size()
-        pairs = 0
-        for group in self.groups:
-            length = self.shape[0] if group.transposed else self.shape[1]
-            pairs += sum((a.stop - a.start) * (b.stop - b.start) * length for a, b, _ in self._blocks(group))
-        return pairs * per_pair
+        return self._weighted_pairs * (8 + 3 * torch.empty((), dtype=dtype).element_size())
 
     def _weighted_blocks(self, like: torch.Tensor, work: list[torch.Tensor]):
         """Each group with an iterator over its blocks ``(angles, lines, mirrored, weights)``.
@@ -329,8 +329,9 @@ class FootprintKernel:
             if kept is not None:
                 yield group, iter(kept[number])
             else:
-                into = None if fresh is None else []
+                into = None
                 if fresh is not None:
+                    into = []
                     fresh.append(into)
                 yield group, self._computed_blocks(group, like, work, into)
         if fresh is not None:
