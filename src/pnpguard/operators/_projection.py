@@ -28,7 +28,7 @@ STORAGE = ("auto", "matrix", "matrix-free")
 MATRIX_BYTES_PER_PAIR = 55
 
 #: ``storage="auto"`` stores the matrix when it takes at most this many bytes
-#: (its products are faster: the matrix-free ones take 1.7 (float32) and 1.9
+#: (its products are faster: the matrix-free ones take 1.5-1.7 (float32) and 1.9-2.1
 #: (float64) times as long at 256 x 256 with 180 angles once their weights are
 #: kept, ``benchmarks/bench_projector_scale.py``).
 MATRIX_BYTES_LIMIT = 2**30
@@ -205,9 +205,9 @@ class ParallelProjection(LinearOperator):
     kept after the first product in each precision while they fit
     ``WEIGHT_CACHE_BYTES`` (256 MiB; 60 MB in float32 and 95 MB in float64 at
     256 x 256 with 180 angles). There a matrix-free forward + adjoint takes
-    1.7 (float32) and 1.9 (float64) times the stored product (one torch
+    1.5-1.7 (float32) and 1.9-2.1 (float64) times the stored product (one torch
     thread, quiet machine; 2.3-3 times when the weights are recomputed), with
-    no set-up and a fifth of the stored matrix's memory; at
+    no set-up and a tenth of the stored matrix's memory or less; at
     512 x 512 with 360 angles the whole process peaks at about 0.35 GB
     (the stored path: 7.8 GB) and a 1024 x 1024 scan with 720 angles is
     reconstructed in under 0.5 GB (``benchmarks/bench_projector_scale.py``).
