@@ -541,6 +541,59 @@ def test_the_safeguard_rejects_an_anderson_step_that_increases_the_residual():
     np.testing.assert_allclose(x.numpy(), lasso.coef_, atol=1e-8)
 
 
+def test_acceleration_ends_above_the_start_or_when_idle_at_the_point_of_lowest_residual():
+    from pnpguard.solvers._anderson import ABOVE_START, IDLE_LIMIT, PROGRESS, Anderson
+
+    # Above the start: after a lower point, ABOVE_START residuals in a row above the first one.
+    anderson = Anderson(3)
+    points = [torch.full((2,), float(k)) for k in range(ABOVE_START + 2)]
+    residuals = [1.0, 0.8] + [1.3] * ABOVE_START
+    ends = [anderson.stagnated(p, r) for p, r in zip(points, residuals)]
+    assert ends[:-1] == [None] * (ABOVE_START + 1) and ends[-1] is points[1]
+    assert anderson.ended_at == ABOVE_START + 2 and "above the first" in anderson.end_reason
+    assert anderson.propose(points[-1], torch.ones(2), 1.0) is None  # no more candidates
+    # Residuals above the lowest one but not above the first do not end it before IDLE_LIMIT.
+    anderson = Anderson(3)
+    points = [torch.full((2,), float(k)) for k in range(IDLE_LIMIT + 3)]
+    # The lowest residual (0.4975) is not a 1 % fall from 0.5: idle from the third point on.
+    residuals = [1.0, 0.5, 0.5 * (1 - PROGRESS / 2)] + [0.9] * (IDLE_LIMIT - 1)
+    ends = [anderson.stagnated(p, r) for p, r in zip(points, residuals)]
+    assert ends[:-1] == [None] * (IDLE_LIMIT + 1) and ends[-1] is points[2]
+    assert "without a 1% fall" in anderson.end_reason
+    # Ending at the lowest point itself needs no jump.
+    anderson = Anderson(3)
+    assert [anderson.stagnated(points[0], 1.0) for _ in range(IDLE_LIMIT + 1)] == [None] * (IDLE_LIMIT + 1)
+    assert anderson.ended_at == IDLE_LIMIT + 1
+
+
+def test_an_accelerated_run_that_drifts_returns_to_the_plain_iteration_and_its_fixed_point(monkeypatch):
+    import pnpguard.solvers._anderson as anderson_module
+    from pnpguard.bench import get_denoiser, get_suite
+
+    # The quick suite's inpainting task (50 % missing pixels, 64 x 64) with wavelet shrinkage:
+    # Douglas-Rachford's Anderson candidates raise the residual, pass the (loose) safeguard and
+    # leave the iterate where the plain map barely moves (measured with benchmarks/bench_anderson.py).
+    task = next(t for t in get_suite("quick").tasks if t.name == "inpaint-random50")
+    problem = task.problem((64, 64))
+    denoiser = get_denoiser("wavelet").make(0.0025, problem.shape)
+    report = pg.check_denoiser(denoiser, problem.start(), budget=20, seed=0)
+    runs = {
+        accelerate: pg.douglas_rachford(problem.fidelity, denoiser, report=report, max_iter=1000, tol=1e-4,
+                                        accelerate=accelerate)
+        for accelerate in (False, True)
+    }
+    plain, fast = runs[False], runs[True]
+    assert plain.converged and fast.converged and fast.accelerated > 0
+    assert any("acceleration ended" in note for note in fast.notes)
+    assert not [flag for flag in fast.flags if flag.kind == "stall"]
+    assert_close(fast.x, plain.x, rtol=0, atol=2e-3, what="accelerated vs plain end point")
+    # Without the end rule the same run drifts: it stalls and never reaches the tolerance.
+    monkeypatch.setattr(anderson_module, "ABOVE_START", 10**9)
+    drifting = pg.douglas_rachford(problem.fidelity, denoiser, report=report, max_iter=300, tol=1e-4,
+                                   accelerate=True)
+    assert not drifting.converged and any(flag.kind == "stall" for flag in drifting.flags)
+
+
 def test_gamma_and_the_denoiser_strength_set_the_douglas_rachford_fixed_point_together():
     op, _, y = _blur_problem()
     fidelity = pg.LeastSquares(op, y, sigma=0.2)

@@ -220,6 +220,10 @@ class _Run:
                 )
                 break
             if anderson is not None:
+                best = anderson.stagnated(accepted, step_norm)
+                if best is not None:  # acceleration ended: plain steps from the lowest-residual point
+                    v, size, plain = best, norm(best), False
+                    continue
                 proposal = anderson.propose(accepted, step, step_norm)
                 if proposal is not None:
                     pending = (v, size)
@@ -241,6 +245,11 @@ class _Run:
                 f"Anderson acceleration: {anderson.accepted} accelerated steps accepted, "
                 f"{anderson.rejected} candidates rejected by the safeguard",
             )
+            if anderson.ended_at is not None:
+                notes += (
+                    f"acceleration ended after {anderson.ended_at} accepted points ({anderson.end_reason}); "
+                    "plain steps from then on, from the point of lowest residual",
+                )
         return Reconstruction(
             x=from_tensor(estimate, self.fidelity.kind),
             algorithm=self.algorithm.name,

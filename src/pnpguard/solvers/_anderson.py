@@ -19,7 +19,22 @@ The candidate is only a proposal. It is taken when
    candidates accepted so far (the safeguard of Zhang et al. 2020).
 
 A rejected candidate costs one evaluation of ``T``; the run then takes the
-plain step from ``v_k`` and restarts the memory. Condition 2 makes the
+plain step from ``v_k`` and restarts the memory.
+
+The safeguard admits candidates whose residual is far above the current one,
+as the acceleration needs (its residuals are not monotone: on inpainting with
+a wavelet prior, forward-backward's accepted residuals stayed above their
+lowest value for 90 points, up to 13 times above it, and then converged three
+times faster than the plain run), but then the iterate can also drift to a
+region where the plain map is slow: on the same task, Douglas-Rachford
+candidates raised the residual by a third and the run did not recover in 1000
+iterations. So acceleration ends when the last :data:`ABOVE_START` accepted
+points all have a residual above the first one (where the plain iteration
+never goes) or :data:`IDLE_LIMIT` accepted points in a row have not brought
+the residual :data:`PROGRESS` below its value when progress was last made.
+The run then continues with plain steps from the accepted point of lowest
+residual (one more evaluation of ``T``; the tail of the run is the plain
+iteration, so its convergence is unaffected). Condition 2 makes the
 residuals at accepted candidates summable and condition 1 the lengths of the
 accelerated steps; together with the Fejer monotonicity of the plain steps this
 keeps the convergence of the plain iteration (the argument of Zhang,
@@ -61,6 +76,15 @@ CONDITION_LIMIT = 1e-10
 #: set, as for Douglas-Rachford with a mask, unbounded extrapolation along it made the relative
 #: residual small while the estimate was far from a fixed point).
 RADIUS_FACTOR = 3.0
+#: Accepted points in a row above the first residual after which acceleration ends (our choice:
+#: half the monitor's stall window, so that a drifting run is back on the plain iteration before a
+#: stall flag is due, ``benchmarks/bench_anderson.py``).
+ABOVE_START = 25
+#: Accepted points in a row without progress after which acceleration ends (our choice: four
+#: stall windows; accelerated runs that went on to converge fast were idle for up to 90).
+IDLE_LIMIT = 200
+#: Relative fall of the residual that counts as progress (the monitor's ``stall_drop``).
+PROGRESS = 0.01
 
 
 class Anderson:
@@ -79,6 +103,8 @@ class Anderson:
         Candidates accepted (``n``).
     rejected : int
         Candidates the safeguard turned down (each cost one evaluation of ``T``).
+    ended_at : int or None
+        Accepted points seen when acceleration ended for want of progress; None while it runs.
     """
 
     def __init__(self, memory: int, safeguard: float = SAFEGUARD_FACTOR, radius: float | None = None):
@@ -87,7 +113,15 @@ class Anderson:
         self.radius = radius
         self.accepted = 0
         self.rejected = 0
+        self.ended_at: int | None = None
         self._first: float | None = None  # ||f_0||
+        self._seen = 0  # accepted points seen
+        self._best: tuple[float, torch.Tensor | None] = (math.inf, None)  # lowest residual, its point
+        self._mark = math.inf  # residual when progress was last made
+        self._idle = 0  # accepted points since then
+        self._above = 0  # accepted points in a row with a residual above the first one
+        #: Why acceleration ended (None while it runs).
+        self.end_reason: str | None = None
         self._point: torch.Tensor | None = None  # last accepted point v_k and its step f_k
         self._step: torch.Tensor | None = None
         self._s: list[torch.Tensor] = []
@@ -100,10 +134,43 @@ class Anderson:
         self._s, self._y = [], []
         self._sy = np.zeros((0, 0))
 
+    def stagnated(self, point: torch.Tensor, step_norm: float) -> torch.Tensor | None:
+        """Record the accepted ``point`` and its residual; where to go when acceleration ends here.
+
+        Returns the accepted point of lowest residual when this point ends
+        acceleration (see the module notes) and that point is an earlier one;
+        None otherwise. Call before :meth:`propose`.
+        """
+        if self.ended_at is not None:
+            return None
+        if self._first is None:
+            self._first = step_norm
+        self._seen += 1
+        if step_norm < self._best[0]:
+            self._best = (step_norm, point)
+        self._above = self._above + 1 if step_norm > self._first else 0
+        if step_norm <= (1.0 - PROGRESS) * self._mark:
+            self._mark, self._idle = step_norm, 0
+        else:
+            self._idle += 1
+        if self._above >= ABOVE_START:
+            self.end_reason = f"{ABOVE_START} accepted points in a row with a residual above the first one"
+        elif self._idle >= IDLE_LIMIT:
+            self.end_reason = f"{IDLE_LIMIT} accepted points in a row without a {PROGRESS:.0%} fall of the residual"
+        else:
+            return None
+        self.ended_at = self._seen
+        best = self._best[1]
+        self._best = (self._best[0], None)
+        self.restart()
+        return None if best is point else best
+
     def propose(self, point: torch.Tensor, step: torch.Tensor, step_norm: float) -> torch.Tensor | None:
         """The candidate after the accepted ``point`` whose plain step is ``step``; None for the plain step."""
         if self._first is None:
             self._first = step_norm
+        if self.ended_at is not None:
+            return None
         if self._point is not None:
             self._remember(point - self._point, step - self._step)
         self._point, self._step = point, step
@@ -167,10 +234,10 @@ def _dot(a: torch.Tensor, b: torch.Tensor) -> float:
 
 
 def memory_bytes(memory: int, pixels: int, dtype: torch.dtype) -> int:
-    """Bytes of iterate-sized tensors the accelerator keeps: ``2 m`` differences and 3 more.
+    """Bytes of iterate-sized tensors the accelerator keeps: ``2 m`` differences and 4 more.
 
-    The ``m`` pairs ``(s_i, y_i)``, the last accepted point and its step, and
-    the candidate awaiting its safeguard (the plain iteration already keeps
-    the iterate and its step).
+    The ``m`` pairs ``(s_i, y_i)``, the last accepted point and its step, the
+    candidate awaiting its safeguard and the accepted point of lowest residual
+    (the plain iteration already keeps the iterate and its step).
     """
-    return (2 * memory + 3) * pixels * torch.finfo(dtype).bits // 8
+    return (2 * memory + 4) * pixels * torch.finfo(dtype).bits // 8

@@ -89,7 +89,7 @@ class RunOptions:
         the iteration map, rejected candidates included.
     anderson_memory : int, optional
         Difference pairs the acceleration keeps (default 5): it holds
-        ``2 m + 3`` iterate-sized tensors, 52 MiB at 1024 x 1024 in float32
+        ``2 m + 4`` iterate-sized tensors, 56 MiB at 1024 x 1024 in float32
         (104 MiB in float64) for ``m = 5``.
     threads : int, optional
         Torch threads for the run (restored afterwards). Default: the CPUs
