@@ -170,7 +170,9 @@ def test_matrix_free_kept_weights_give_the_recomputed_products():
     assert recomputed._kept == {}
     assert len(kept._kept) == 2
     for (dtype, _, _), groups in kept._kept.items():
-        held = sum(t.numel() * t.element_size() for blocks in groups for *_, weights in blocks for t in weights)
+        held = sum(
+            t.numel() * t.element_size() for blocks in groups for *_, weights in blocks for t in weights if t is not None
+        )
         assert held == kept._kept_bytes(dtype)
     threads = torch.get_num_threads()
     try:
@@ -184,6 +186,11 @@ def test_matrix_free_kept_weights_give_the_recomputed_products():
     small = FootprintKernel((23, 18), angles, 31, weight_cache_bytes=kept._kept_bytes(torch.float32) - 1)
     small.forward(x)
     assert small._kept == {}
+    # The default budget keeps both precisions at 256 x 256 with 180 angles (as documented).
+    from pnpguard.operators._footprint import WEIGHT_CACHE_BYTES
+
+    scan = FootprintKernel((256, 256), np.arange(180.0), 363)
+    assert scan._kept_bytes(torch.float32) + scan._kept_bytes(torch.float64) <= WEIGHT_CACHE_BYTES
 
 
 def test_storage_rule_and_forcing():

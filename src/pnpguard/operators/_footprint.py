@@ -32,10 +32,10 @@ SERIAL_BLOCK_PAIRS = (1 << 15) - 1
 
 #: The weights computed by a product are kept for the next ones while all kept
 #: weights (every precision together) take at most this many bytes. At 256 x 256
-#: with 180 angles they take 60 MB in float32 and 95 MB in float64, and a
-#: forward + adjoint then costs about two thirds of the time of one that
+#: with 180 angles they take 107 MB in float32 and 143 MB in float64 (both fit),
+#: and a forward + adjoint then costs about two thirds of the time of one that
 #: recomputes them (``benchmarks/bench_projector_scale.py``); at 512 x 512 with
-#: 360 angles they would take 0.5-0.8 GB, so such scans recompute them.
+#: 360 angles they would take 0.85-1.14 GB, so such scans recompute them.
 WEIGHT_CACHE_BYTES = 2**28
 
 
@@ -232,11 +232,13 @@ class FootprintKernel:
                 order.extend(chosen)
                 if paired:
                     order.extend(second_of_pair[np.isin(first_of_pair, chosen)])
-        # Pairs whose weights a product computes: each group's angles on the first half of its lines.
-        self._weighted_pairs = sum(
-            group.count * (((width if group.transposed else height) + 1) // 2) * (height if group.transposed else width)
-            for group in self.groups
-        )
+        # Pairs whose weights a product computes (each group's angles on the first half of its
+        # lines) and those of them whose point reflection is another pixel (a mirrored index each).
+        self._weighted_pairs = self._mirrored_pairs = 0
+        for group in self.groups:
+            lines, length = (width, height) if group.transposed else (height, width)
+            self._weighted_pairs += group.count * ((lines + 1) // 2) * length
+            self._mirrored_pairs += group.count * (lines // 2) * length
         self.order = np.array(order, dtype=np.int64)
         self.inverse_order = torch.from_numpy(np.argsort(self.order))
         self.order_tensor = torch.from_numpy(self.order)
@@ -266,11 +268,14 @@ class FootprintKernel:
 
     def _weights(
         self, group: _Group, angles: slice, lines: slice, like: torch.Tensor, work: list[torch.Tensor]
-    ) -> tuple[torch.Tensor, torch.Tensor, torch.Tensor, torch.Tensor]:
-        """Slot index (int64) and the three weights of a block, in ``like``'s dtype.
+    ) -> tuple[torch.Tensor, ...]:
+        """Slot index (int64 and int32) and the three weights of a block, in ``like``'s dtype.
 
-        All four are shaped ``(angles, lines, inner)``; the index counts slots
+        All five are shaped ``(angles, lines, inner)``; the index counts slots
         from the block's first work row, minus one (the lowest bin's slot).
+        The scatter of the forward map needs int64 indices; the gather of the
+        adjoint reads int32 ones, a third faster in float64 (half the index
+        traffic).
         """
         outer_fraction, outer_whole, inner_fraction, inner_whole = (
             t.like_real(like) for t in group.tables
@@ -302,16 +307,23 @@ class FootprintKernel:
         torch.mul(ramp, square, out=near)
         torch.mul(frac, gain, out=high).add_(level).clamp_(min=0.0).addcmul_(ramp, near)
         middle = torch.add(low, high, out=near).neg_().add_(1.0)
-        return index, low, middle, high
+        return index, index32, low, middle, high
 
     def _kept_bytes(self, dtype: torch.dtype) -> int:
-        """Bytes that keeping every block's weights in ``dtype`` takes (int64 index + 3 weights)."""
-        return self._weighted_pairs * (8 + 3 * torch.empty((), dtype=dtype).element_size())
+        """Bytes that keeping every block's weights in ``dtype`` takes.
+
+        Per weighted pair an int64 and an int32 index and three weights, and
+        per mirrored pair the two indices of the reflected pixel.
+        """
+        weights = 3 * torch.empty((), dtype=dtype).element_size()
+        return self._weighted_pairs * (12 + weights) + self._mirrored_pairs * 12
 
     def _weighted_blocks(self, like: torch.Tensor, work: list[torch.Tensor]):
         """Each group with an iterator over its blocks ``(angles, lines, mirrored, weights)``.
 
-        ``weights`` is ``(index, low, middle, high)`` of :meth:`_weights`. They
+        ``weights`` is ``(index, index32, reflected, reflected32, low, middle,
+        high)``: those of :meth:`_weights` with the reflected pixels' indices
+        of :meth:`_mirrored_index` (None when the block mirrors no line). They
         are the kept ones when this precision and device has them; otherwise
         they are computed into ``work`` and, when :attr:`weight_cache_bytes`
         allows, copied and kept once the whole product has gone through them.
@@ -342,16 +354,18 @@ class FootprintKernel:
     ):
         """The group's blocks with freshly computed weights (copies appended to ``into`` if given)."""
         for angles, lines, mirrored in self._blocks(group):
-            weights = self._weights(group, angles, lines, like, work)
+            index, index32, *values = self._weights(group, angles, lines, like, work)
+            reflected = self._mirrored_index(index, index32, mirrored, work) if mirrored else (None, None)
+            weights = (index, index32, *reflected, *values)
             if into is not None:
-                weights = tuple(t.clone() for t in weights)
+                weights = tuple(None if t is None else t.clone() for t in weights)
                 into.append((angles, lines, mirrored, weights))
             yield angles, lines, mirrored, weights
 
     def _mirrored_index(
-        self, index: torch.Tensor, mirrored: int, work: list[torch.Tensor]
-    ) -> torch.Tensor:
-        """Slot index of the reflected pixels: bin ``n`` becomes ``D - 1 - n``.
+        self, index: torch.Tensor, index32: torch.Tensor, mirrored: int, work: list[torch.Tensor]
+    ) -> tuple[torch.Tensor, torch.Tensor]:
+        """Slot index (int64, int32) of the reflected pixels: bin ``n`` becomes ``D - 1 - n``.
 
         A reflected pixel sits at ``2 c - s`` with ``c = (D - 1)/2``, so its
         fraction is ``-f`` (the low and high weights swap, the middle one
@@ -359,9 +373,12 @@ class FootprintKernel:
         choice of nearest bin gives the same weights per bin.
         """
         rows = index.shape[0]
-        offsets = work[8][:rows].view(rows, 1, 1)
-        target = work[9][: rows * mirrored * index.shape[2]].view(rows, mirrored, index.shape[2])
-        return torch.sub(offsets, index[:, :mirrored], out=target)
+        shape = (rows, mirrored, index.shape[2])
+        size = shape[0] * shape[1] * shape[2]
+        return (
+            torch.sub(work[8][:rows].view(rows, 1, 1), index[:, :mirrored], out=work[9][:size].view(shape)),
+            torch.sub(work[11][:rows].view(rows, 1, 1), index32[:, :mirrored], out=work[12][:size].view(shape)),
+        )
 
     def _work(self, like: torch.Tensor) -> list[torch.Tensor]:
         """Work buffers of one product, reused by every block (in ``like``'s dtype and device)."""
@@ -377,6 +394,8 @@ class FootprintKernel:
             offsets,
             torch.empty(size, dtype=torch.int64, device=device),
             torch.empty(size, dtype=like.dtype, device=device),
+            offsets.to(torch.int32),
+            torch.empty(size, dtype=torch.int32, device=device),
         ]
 
     # ------------------------------------------------------------- transforms
@@ -410,8 +429,7 @@ class FootprintKernel:
                 (offset * self.stride, _flipped(ordered, axes), mirrored)
                 for offset, axes, mirrored in self._variants(group)
             ]
-            for angles, lines, mirrored, (index, low, middle, high) in blocks:
-                reflected = self._mirrored_index(index, mirrored, work) if mirrored else None
+            for angles, lines, mirrored, (index, _, reflected, _, low, middle, high) in blocks:
                 base = (group.first + angles.start) * self.stride
                 span = (angles.stop - angles.start) * self.stride - 2
                 for offset, pixels, flipped in variants:
@@ -452,8 +470,7 @@ class FootprintKernel:
                 (offset * self.stride, axes, y.new_zeros(count, lines, length), mirrored)
                 for offset, axes, mirrored in self._variants(group)
             ]
-            for angles, block_lines, mirrored, (index, low, middle, high) in blocks:
-                reflected = self._mirrored_index(index, mirrored, work) if mirrored else None
+            for angles, block_lines, mirrored, (_, index, _, reflected, low, middle, high) in blocks:
                 base = (group.first + angles.start) * self.stride
                 span = (angles.stop - angles.start) * self.stride - 2
                 for offset, _, into, flipped in variants:

@@ -203,10 +203,11 @@ class ParallelProjection(LinearOperator):
     the same weights for the adjoint); the two paths agree to rounding. The
     weights of a quarter of the pairs (the others follow by symmetry) are
     kept after the first product in each precision while they fit
-    ``WEIGHT_CACHE_BYTES`` (256 MiB; 60 MB in float32 and 95 MB in float64 at
-    256 x 256 with 180 angles). There a matrix-free forward + adjoint takes
-    1.5-1.7 (float32) and 1.9-2.1 (float64) times the stored product (one torch
-    thread, quiet machine; 2.3-3 times when the weights are recomputed), with
+    ``WEIGHT_CACHE_BYTES`` (256 MiB; 107 MB in float32 and 143 MB in float64
+    at 256 x 256 with 180 angles). There a matrix-free forward + adjoint takes
+    1.5-1.6 (float32) and 1.6-1.8 (float64) times the stored product (fastest
+    of 15 interleaved rounds against fastest, one torch thread, three runs;
+    2.3-3 times when the weights are recomputed), with
     no set-up and a tenth of the stored matrix's memory or less; at
     512 x 512 with 360 angles the whole process peaks at about 0.35 GB
     (the stored path: 7.8 GB) and a 1024 x 1024 scan with 720 angles is
