@@ -298,6 +298,28 @@ def test_case_one_converges_and_just_outside_case_four_is_refused():
         pg.douglas_rachford(fidelity, denoiser, report=report, step=low * 0.99)
 
 
+def test_the_stall_check_follows_the_lowest_residual_so_a_single_high_point_is_no_stall():
+    from pnpguard.solvers._monitor import Monitor
+
+    def flags(residuals):
+        # fixed_point=False leaves the stall check alone (no step-to-step comparisons).
+        monitor = Monitor(pg.Policy(stall_window=5), None, 1.0, 1.0, fixed_point=False)
+        point = torch.zeros(2)
+        found = []
+        for k, r in enumerate(residuals):
+            found += monitor.observe(k, point, 0.0, point, r)
+        return [flag.kind for flag in found]
+
+    before = [1.0, 0.5, 0.4, 0.3, 0.2]
+    # An accepted accelerated point far above the lowest residual at the window's end: progress.
+    assert flags(before + [0.1, 0.09, 0.08, 0.07, 9.0]) == []
+    # The lowest residual did not fall 1 % below 0.2 over the window: a stall.
+    assert flags(before + [0.2, 0.199, 0.3, 0.2, 0.25]) == ["stall"]
+    # A monotone (plain) sequence is judged by its last residual against the one before the window.
+    assert flags([1.0, 0.9, 0.8, 0.7, 0.6] + [0.6, 0.6, 0.6, 0.6, 0.595]) == ["stall"]
+    assert flags([1.0, 0.9, 0.8, 0.7, 0.6] + [0.6, 0.6, 0.6, 0.6, 0.59]) == []
+
+
 def test_a_map_without_fixed_point_stalls_and_the_policy_stops_it():
     # T x = D(x - eta grad f) with D a translation by 0.01 has no fixed point on the missing
     # pixels: the residual settles at the minimal displacement (Pazy 1971; THEORY.md section 5).
