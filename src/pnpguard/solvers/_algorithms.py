@@ -242,13 +242,17 @@ class _Run:
             notes = (f"relaxation lowered from {self.relaxation:g} to {relaxation:g} by back-offs",)
         if anderson is not None:
             notes += (
-                f"Anderson acceleration: {anderson.accepted} accelerated steps accepted, "
-                f"{anderson.rejected} candidates rejected by the safeguard",
+                (
+                    f"Anderson acceleration: {anderson.accepted} accelerated steps accepted, "
+                    f"{anderson.rejected} candidates rejected by the safeguard"
+                ),
             )
             if anderson.ended_at is not None:
                 notes += (
-                    f"acceleration ended after {anderson.ended_at} accepted points ({anderson.end_reason}); "
-                    "plain steps from then on, from the point of lowest residual",
+                    (
+                        f"acceleration ended after {anderson.ended_at} accepted points ({anderson.end_reason}); "
+                        "plain steps from then on, from the point of lowest residual"
+                    ),
                 )
         return Reconstruction(
             x=from_tensor(estimate, self.fidelity.kind),

@@ -19,7 +19,12 @@ The candidate is only a proposal. It is taken when
    candidates accepted so far (the safeguard of Zhang et al. 2020).
 
 A rejected candidate costs one evaluation of ``T``; the run then takes the
-plain step from ``v_k`` and restarts the memory.
+plain step from ``v_k`` and restarts the memory. Condition 2 makes the
+residuals at accepted candidates summable and condition 1 the lengths of the
+accelerated steps; together with the Fejer monotonicity of the plain steps this
+keeps the convergence of the plain iteration (the argument of Zhang,
+O'Donoghue and Boyd 2020, whose safeguard this is; see ``docs/theory.md``,
+section 13).
 
 The safeguard admits candidates whose residual is far above the current one,
 as the acceleration needs (its residuals are not monotone: on inpainting with
@@ -34,12 +39,7 @@ never goes) or :data:`IDLE_LIMIT` accepted points in a row have not brought
 the residual :data:`PROGRESS` below its value when progress was last made.
 The run then continues with plain steps from the accepted point of lowest
 residual (one more evaluation of ``T``; the tail of the run is the plain
-iteration, so its convergence is unaffected). Condition 2 makes the
-residuals at accepted candidates summable and condition 1 the lengths of the
-accelerated steps; together with the Fejer monotonicity of the plain steps this
-keeps the convergence of the plain iteration (the argument of Zhang,
-O'Donoghue and Boyd 2020, whose safeguard this is; see ``docs/theory.md``,
-section 13).
+iteration, so its convergence is unaffected).
 
 References
 ----------
@@ -104,7 +104,9 @@ class Anderson:
     rejected : int
         Candidates the safeguard turned down (each cost one evaluation of ``T``).
     ended_at : int or None
-        Accepted points seen when acceleration ended for want of progress; None while it runs.
+        Accepted points seen when acceleration ended (see the module notes); None while it runs.
+    end_reason : str or None
+        Which of the two end rules ended it.
     """
 
     def __init__(self, memory: int, safeguard: float = SAFEGUARD_FACTOR, radius: float | None = None):
@@ -114,14 +116,13 @@ class Anderson:
         self.accepted = 0
         self.rejected = 0
         self.ended_at: int | None = None
+        self.end_reason: str | None = None
         self._first: float | None = None  # ||f_0||
         self._seen = 0  # accepted points seen
         self._best: tuple[float, torch.Tensor | None] = (math.inf, None)  # lowest residual, its point
         self._mark = math.inf  # residual when progress was last made
         self._idle = 0  # accepted points since then
         self._above = 0  # accepted points in a row with a residual above the first one
-        #: Why acceleration ended (None while it runs).
-        self.end_reason: str | None = None
         self._point: torch.Tensor | None = None  # last accepted point v_k and its step f_k
         self._step: torch.Tensor | None = None
         self._s: list[torch.Tensor] = []
