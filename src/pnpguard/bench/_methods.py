@@ -185,12 +185,15 @@ class DenoiserCache:
 def starts_interpolated(method: Method, problem: Problem) -> bool:
     """Whether a PnP run starts from the interpolation of the missing pixels.
 
-    A descent on a nonconvex objective (the potential route) from the
-    zero-filled start barely moves the missing pixels of a mask, so such runs
-    start from their interpolation (common practice); the guarantee covers the
-    run from there.
+    Every PnP run on a pixel mask does (common practice in inpainting): a
+    descent on a nonconvex objective (the potential route) from the
+    zero-filled start barely moves the missing pixels, and the fixed-point
+    schemes fill them only slowly from it (Douglas-Rachford with wavelet
+    shrinkage on 50 % missing pixels at 64 x 64: 418 iterations to relative
+    residual 1e-4 from the zero-filled start, 91 from the interpolated one).
+    The guarantee covers the run from any start.
     """
-    return algorithm(method.algorithm).watches == "objective" and isinstance(problem.op, PixelMask)
+    return isinstance(problem.op, PixelMask)
 
 
 def run_pnp(
