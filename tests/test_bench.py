@@ -423,3 +423,18 @@ def test_descent_runs_off_masks_start_from_a_stronger_first_phase():
     assert outcome.parameters["start"].startswith(f"first phase at strength {entry.first_phase:g}")
     # The first phase's denoiser was built and checked at its own strength.
     assert ("gradient-step-cnn", entry.first_phase) in cache._entries
+
+
+def test_pnp_runs_on_masks_start_from_the_interpolated_missing_pixels():
+    # Fixed-point and descent runs alike start on a mask from griddata's interpolation of the
+    # observed pixels (pnpguard.interpolated_start); other models keep A^T y / ||A||^2.
+    from pnpguard.bench._methods import DenoiserCache, Method, run_pnp
+
+    mask_problem = bench.get_task("inpaint-random50").problem((24, 24))
+    blur_problem = bench.get_task("deblur-gaussian-1pct").problem((24, 24))
+    method = Method("dr/gaussian", "pnp", "dr", "gaussian")
+    for problem, interpolated in ((mask_problem, True), (blur_problem, False)):
+        cache = DenoiserCache(problem, budget=20, seed=0)
+        outcome = run_pnp(method, problem, 0.5, denoisers=cache, max_iter=1, tol=0.0)
+        assert outcome.status == "ok"
+        assert (outcome.parameters.get("start") == "interpolated") == interpolated
