@@ -3,7 +3,8 @@
 For every task of the chosen suite, every fixed-point algorithm (forward-backward,
 Douglas-Rachford, ADMM) and every shipped denoiser the guard admits, at the tuned
 strength: map evaluations and wall time to relative residual ``TOL`` with and
-without ``accelerate=True`` (same check report, same start, one thread), the final
+without ``accelerate=True`` (same check report, same start: the suites' own, the
+interpolated missing pixels on a mask; one thread), the final
 PSNR of both, the distance between the two end points, and new monitor flags.
 Evaluations count the candidates the safeguard rejected (each costs one map
 evaluation). Medians per algorithm at the end.
@@ -22,7 +23,7 @@ import time
 import numpy as np
 import torch
 
-from pnpguard import reconstruct
+from pnpguard import PixelMask, interpolated_start, reconstruct
 from pnpguard.bench import denoiser_names, get_denoiser, get_suite, load_tuned
 from pnpguard.bench._tasks import DATA_RANGE
 from pnpguard.check import check_denoiser
@@ -35,9 +36,11 @@ MAX_ITER = 600
 
 
 def _run(algorithm, problem, denoiser, report, accelerate, tol=TOL, max_iter=MAX_ITER):
+    # The suites' start: the interpolated missing pixels on a mask (as the benchmark runs do).
+    x0 = interpolated_start(problem.fidelity) if isinstance(problem.op, PixelMask) else None
     start = time.perf_counter()
     result = reconstruct(
-        algorithm, problem.fidelity, denoiser, report=report, max_iter=max_iter, tol=tol,
+        algorithm, problem.fidelity, denoiser, report=report, x0=x0, max_iter=max_iter, tol=tol,
         accelerate=accelerate, threads=1,
     )
     seconds = time.perf_counter() - start

@@ -359,7 +359,7 @@ def _accelerates(
     the accelerated candidates meet the prox's own errors: measured on the quick suite
     with the TV prox at tol 1e-6, 6 of 12 accelerated runs raised stall flags the plain
     ones did not and the median wall time fell only 1.1-1.4 times. Exact denoisers on the
-    full suite (128 x 128, tol 1e-4, 120 runs) took 3.6 / 4.2 / 4.2 times fewer map
+    full suite (128 x 128, tol 1e-4, 120 runs) took 3.1 / 3.6 / 3.5 times fewer map
     evaluations in the median (forward-backward / Douglas-Rachford / ADMM) and raised no
     flag the plain runs did not (``benchmarks/bench_anderson.py``; ``docs/theory.md``,
     section 13).
