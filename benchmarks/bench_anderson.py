@@ -23,8 +23,9 @@ import time
 import numpy as np
 import torch
 
-from pnpguard import PixelMask, interpolated_start, reconstruct
+from pnpguard import interpolated_start, reconstruct
 from pnpguard.bench import denoiser_names, get_denoiser, get_suite, load_tuned
+from pnpguard.bench._methods import starts_interpolated
 from pnpguard.bench._tasks import DATA_RANGE
 from pnpguard.check import check_denoiser
 from pnpguard.guarantee import Refused
@@ -36,8 +37,8 @@ MAX_ITER = 600
 
 
 def _run(algorithm, problem, denoiser, report, accelerate, tol=TOL, max_iter=MAX_ITER):
-    # The suites' start: the interpolated missing pixels on a mask (as the benchmark runs do).
-    x0 = interpolated_start(problem.fidelity) if isinstance(problem.op, PixelMask) else None
+    # The suites' start (the interpolated missing pixels on a mask), as the benchmark runs do.
+    x0 = interpolated_start(problem.fidelity) if starts_interpolated(problem) else None
     start = time.perf_counter()
     result = reconstruct(
         algorithm, problem.fidelity, denoiser, report=report, x0=x0, max_iter=max_iter, tol=tol,

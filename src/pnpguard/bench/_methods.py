@@ -182,7 +182,7 @@ class DenoiserCache:
         return denoiser, report, seconds
 
 
-def starts_interpolated(method: Method, problem: Problem) -> bool:
+def starts_interpolated(problem: Problem) -> bool:
     """Whether a PnP run starts from the interpolation of the missing pixels.
 
     Every PnP run on a pixel mask does (common practice in inpainting): a
@@ -216,7 +216,7 @@ def run_pnp(
     options: dict[str, Any] = {}
     first_phase = get_denoiser(method.denoiser).first_phase
     try:
-        if starts_interpolated(method, problem):
+        if starts_interpolated(problem):
             options["x0"] = interpolated_start(problem.fidelity)
             parameters["start"] = "interpolated"
         elif algorithm(method.algorithm).watches == "objective" and first_phase is not None and first_phase > strength:

@@ -82,7 +82,7 @@ def run_rule_job(job: RuleJob) -> dict[str, Any]:
     entry = get_denoiser(job.method.denoiser)
     options: dict[str, Any] = {"max_iter": job.suite.max_iter, "tol": job.suite.tol,
                                "check_budget": job.budget}
-    if starts_interpolated(job.method, problem):
+    if starts_interpolated(problem):
         options["x0"] = interpolated_start(problem.fidelity)
     choice = choose_strength(
         problem.fidelity,
